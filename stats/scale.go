@@ -1,9 +1,12 @@
 package stats
 
-// CONTRACT SKETCH: the helper that owns this file replaces the bodies (and
-// may add files) but keeps every exported name and signature below.
-
 import (
+	"errors"
+	"fmt"
+	"math"
+	"math/big"
+	"strings"
+
 	"github.com/apache/arrow/go/v17/arrow"
 	"github.com/apache/arrow/go/v17/arrow/memory"
 )
@@ -12,15 +15,29 @@ import (
 type Method string
 
 const (
-	ZScore   Method = "zscore"
-	MinMax   Method = "minmax"
-	MeanNorm Method = "meannorm"
-	MaxAbs   Method = "maxabs"
-	Identity Method = "none"
+	ZScore   Method = "zscore"   // (x - mean) / std
+	MinMax   Method = "minmax"   // onto [RangeMin, RangeMax]
+	MeanNorm Method = "meannorm" // (x - mean) / (max - min)
+	MaxAbs   Method = "maxabs"   // x / max(|min|, |max|)
+	Identity Method = "none"     // x unchanged
 )
 
+// methods lists every method in the order error messages show them.
+var methods = []Method{ZScore, MinMax, MeanNorm, MaxAbs, Identity}
+
 // ParseMethod validates a method name.
-func ParseMethod(s string) (Method, error) { panic("unimplemented") }
+func ParseMethod(s string) (Method, error) {
+	for _, m := range methods {
+		if s == string(m) {
+			return m, nil
+		}
+	}
+	names := make([]string, len(methods))
+	for i, m := range methods {
+		names[i] = string(m)
+	}
+	return "", fmt.Errorf("unknown scaling method %q (valid: %s)", s, strings.Join(names, ", "))
+}
 
 // StdKind selects the denominator of the standard deviation.
 type StdKind string
@@ -30,6 +47,15 @@ const (
 	StdSample     StdKind = "sample"     // divide by n - 1
 )
 
+// ParseStdKind validates a standard deviation kind.
+func ParseStdKind(s string) (StdKind, error) {
+	switch k := StdKind(s); k {
+	case StdPopulation, StdSample:
+		return k, nil
+	}
+	return "", fmt.Errorf("unknown standard deviation kind %q (valid: %s, %s)", s, StdPopulation, StdSample)
+}
+
 // Options tunes a method. The zero value means: population std, range [0, 1].
 type Options struct {
 	Std      StdKind // zscore only
@@ -37,8 +63,65 @@ type Options struct {
 	RangeMax float64
 }
 
-// Warning is a machine-readable code for a degenerate column.
+// normalize validates o and returns the options method m actually uses,
+// with defaults filled in and every option m ignores set to its zero value,
+// so that Params records exactly the choices that shaped the parameters.
+// Options m ignores are still validated, so a typo never passes silently.
+func (o Options) normalize(m Method) (Options, error) {
+	std := o.Std
+	if std == "" {
+		std = StdPopulation
+	} else if _, err := ParseStdKind(string(std)); err != nil {
+		return Options{}, err
+	}
+	lo, hi := o.RangeMin, o.RangeMax
+	if lo == 0 && hi == 0 {
+		lo, hi = 0, 1
+	}
+	if !isFinite(lo) || !isFinite(hi) || !(lo < hi) {
+		return Options{}, fmt.Errorf("invalid minmax range [%v, %v]: need finite bounds with min < max", o.RangeMin, o.RangeMax)
+	}
+	switch m {
+	case ZScore:
+		return Options{Std: std}, nil
+	case MinMax:
+		return Options{RangeMin: lo, RangeMax: hi}, nil
+	}
+	return Options{}, nil
+}
+
+// Warning is a machine-readable code for a degenerate column. Fit raises at
+// most one per column; the fallback it names keeps every parameter finite.
 type Warning string
+
+const (
+	// WarnNoFiniteValues: the column has no finite values (Count == 0, every
+	// slot is null, NaN or infinite). Center 0, scale 1: y = x.
+	WarnNoFiniteValues Warning = "no_finite_values"
+	// WarnConstantColumn: every finite value is equal (Min == Max, compared
+	// exactly). Scale 1; zscore and meannorm center on the mean so the value
+	// maps to 0; minmax maps it to RangeMin (see Fit).
+	WarnConstantColumn Warning = "constant_column"
+	// WarnSingleValueSampleStd: zscore with the sample std of a single
+	// finite value, which is undefined. Center is the value, scale 1: it
+	// maps to 0.
+	WarnSingleValueSampleStd Warning = "single_value_sample_std"
+	// WarnAllZero: maxabs of a column whose finite values are all zero.
+	// Center 0, scale 1: zeros stay zero.
+	WarnAllZero Warning = "all_zero"
+	// WarnScaleUnderflow: the values differ but the exact scale is below
+	// half the smallest subnormal and rounds to 0 (zscore std of tiny
+	// subnormal data, minmax with a target range vastly wider than the
+	// data). Scale 1 and the method's center, as for a constant column.
+	WarnScaleUnderflow Warning = "scale_underflow"
+)
+
+// ErrParamOverflow reports a column whose parameters, or whose values
+// mapped through them, fall outside the finite float64 range: for example
+// minmax or meannorm of a column spanning [-1e308, 1e308], where
+// max - min is +Inf. Fit returns it (wrapped, naming the method) rather
+// than Inf parameters.
+var ErrParamOverflow = errors.New("scaling parameter overflows float64")
 
 // Params are the fitted parameters of one column: y = (x - Center) / Scale.
 type Params struct {
@@ -48,18 +131,215 @@ type Params struct {
 	Scale   float64
 }
 
+// Validate reports whether p can be applied: a known method, valid options,
+// a finite center and a finite, positive scale.
+func (p Params) Validate() error {
+	if _, err := ParseMethod(string(p.Method)); err != nil {
+		return err
+	}
+	if _, err := p.Options.normalize(p.Method); err != nil {
+		return err
+	}
+	if !isFinite(p.Center) {
+		return fmt.Errorf("invalid %s parameters: center %v is not finite", p.Method, p.Center)
+	}
+	if !isFinite(p.Scale) || !(p.Scale > 0) {
+		return fmt.Errorf("invalid %s parameters: scale %v is not finite and positive", p.Method, p.Scale)
+	}
+	return nil
+}
+
 // Fit derives parameters from a summary. It never returns NaN or Inf
 // parameters: degenerate columns get a documented fallback and a warning.
-func Fit(m Method, o Options, s Summary) (Params, []Warning, error) { panic("unimplemented") }
+//
+// The methods, with y = (x - Center) / Scale:
+//
+//   - zscore: Center = Mean, Scale = StdPopulation or StdSample.
+//   - minmax onto [a, b]: Scale = (Max - Min) / (b - a) and then
+//     Center = Min - a*Scale, each evaluated exactly on the float64 inputs
+//     (math/big) and rounded once to nearest, ties to even. For [0, 1] this
+//     gives Center == Min and Scale == Max - Min rounded once, so
+//     Forward(Min) == 0 and Forward(Max) == 1 exactly.
+//   - meannorm: Center = Mean, Scale = Max - Min (one IEEE 754 subtraction,
+//     rounded once).
+//   - maxabs: Center = 0, Scale = max(|Min|, |Max|).
+//   - none: Center = 0, Scale = 1; the summary is not consulted.
+//
+// Degenerate columns (each raises one Warning, checked in this order):
+// no finite values gives Center 0, Scale 1 for every method; zscore with
+// the sample std of one value gives Center = Mean, Scale 1; a constant
+// column (Min == Max, compared exactly) gives Scale 1 with Center = Mean
+// for zscore and meannorm (the value maps to 0) and Center = Min - a for
+// minmax (rounded once; the value maps to a exactly whenever Min - a is a
+// float64, which always holds for the default range, and otherwise to the
+// float64 nearest it); maxabs of an all-zero column gives Scale 1; a scale
+// that rounds to zero although the values differ gives Scale 1 with the
+// method's center. A constant non-zero column is not degenerate for maxabs
+// (it maps to 1 or -1) and raises no warning.
+//
+// Fit fails with an error wrapping ErrParamOverflow when a parameter would
+// be infinite or when Min or Max would map to an infinite y, or back to an
+// infinite x, so that every finite input of the column maps to a finite
+// output. Center is never -0. Options fills its defaults into
+// Params.Options and keeps only the options the method uses.
+func Fit(m Method, o Options, s Summary) (Params, []Warning, error) {
+	if _, err := ParseMethod(string(m)); err != nil {
+		return Params{}, nil, err
+	}
+	opts, err := o.normalize(m)
+	if err != nil {
+		return Params{}, nil, fmt.Errorf("%s: %w", m, err)
+	}
+	p := Params{Method: m, Options: opts, Center: 0, Scale: 1}
+	if m == Identity {
+		return p, nil, nil
+	}
+	if s.Count == 0 {
+		return p, []Warning{WarnNoFiniteValues}, nil
+	}
+	if err := checkSummary(m, opts, s); err != nil {
+		return Params{}, nil, fmt.Errorf("%s: %w", m, err)
+	}
 
-// Forward scales one value.
-func (p Params) Forward(x float64) float64 { panic("unimplemented") }
+	var warn Warning
+	switch m {
+	case ZScore:
+		p.Center = s.Mean
+		switch {
+		case opts.Std == StdSample && s.Count == 1:
+			warn = WarnSingleValueSampleStd
+		case s.Min == s.Max:
+			warn = WarnConstantColumn
+		default:
+			p.Scale = s.StdPopulation
+			if opts.Std == StdSample {
+				p.Scale = s.StdSample
+			}
+			if p.Scale == 0 {
+				p.Scale, warn = 1, WarnScaleUnderflow
+			}
+		}
+	case MinMax:
+		a, b := opts.RangeMin, opts.RangeMax
+		if s.Min == s.Max {
+			warn = WarnConstantColumn
+		} else {
+			// (max - min) / (b - a), exact, rounded once.
+			num := new(big.Rat).Sub(rat(s.Max), rat(s.Min))
+			den := new(big.Rat).Sub(rat(b), rat(a))
+			p.Scale, _ = num.Quo(num, den).Float64()
+			if math.IsInf(p.Scale, 0) {
+				return Params{}, nil, fmt.Errorf("%s: %w: scale (max - min) / (b - a) is %v for min %v, max %v, range [%v, %v]",
+					m, ErrParamOverflow, p.Scale, s.Min, s.Max, a, b)
+			}
+			if p.Scale == 0 {
+				p.Scale, warn = 1, WarnScaleUnderflow
+			}
+		}
+		// min - a*scale with the rounded scale, so that the affine map
+		// actually applied sends min to a; exact, rounded once.
+		c := new(big.Rat).Mul(rat(a), rat(p.Scale))
+		p.Center, _ = c.Sub(rat(s.Min), c).Float64()
+		if math.IsInf(p.Center, 0) {
+			return Params{}, nil, fmt.Errorf("%s: %w: center min - a*scale is %v for min %v, a %v, scale %v",
+				m, ErrParamOverflow, p.Center, s.Min, a, p.Scale)
+		}
+	case MeanNorm:
+		p.Center = s.Mean
+		if s.Min == s.Max {
+			warn = WarnConstantColumn
+		} else {
+			// One IEEE 754 subtraction is already correctly rounded; it is
+			// exact when the difference is subnormal, so it is > 0 here.
+			p.Scale = s.Max - s.Min
+			if math.IsInf(p.Scale, 0) {
+				return Params{}, nil, fmt.Errorf("%s: %w: scale max - min is %v for min %v, max %v",
+					m, ErrParamOverflow, p.Scale, s.Min, s.Max)
+			}
+		}
+	case MaxAbs:
+		p.Scale = max(math.Abs(s.Min), math.Abs(s.Max))
+		if p.Scale == 0 {
+			p.Scale, warn = 1, WarnAllZero
+		}
+	}
+	p.Center += 0 // -0 + 0 == +0: one canonical zero for manifests
+	if err := checkRange(p, s); err != nil {
+		return Params{}, nil, err
+	}
+	if warn != "" {
+		return p, []Warning{warn}, nil
+	}
+	return p, nil, nil
+}
 
-// Inverse maps a scaled value back to original units.
-func (p Params) Inverse(y float64) float64 { panic("unimplemented") }
+// checkSummary rejects a summary whose statistics cannot come from Count > 0
+// finite values. It checks only the fields method m reads.
+func checkSummary(m Method, o Options, s Summary) error {
+	if !isFinite(s.Min) || !isFinite(s.Max) || s.Min > s.Max {
+		return fmt.Errorf("invalid summary: min %v, max %v over %d finite values", s.Min, s.Max, s.Count)
+	}
+	if (m == ZScore || m == MeanNorm) && !isFinite(s.Mean) {
+		return fmt.Errorf("invalid summary: mean %v over %d finite values", s.Mean, s.Count)
+	}
+	if m == ZScore {
+		std := s.StdPopulation
+		if o.Std == StdSample {
+			if s.Count == 1 {
+				return nil // undefined, and not read
+			}
+			std = s.StdSample
+		}
+		if !isFinite(std) || std < 0 {
+			return fmt.Errorf("invalid summary: %s std %v over %d finite values", o.Std, std, s.Count)
+		}
+	}
+	return nil
+}
+
+// checkRange makes sure Forward maps min and max (and so, being monotone,
+// every finite value of the column) to finite values, and that Inverse
+// maps those back to finite values.
+func checkRange(p Params, s Summary) error {
+	for _, x := range [2]float64{s.Min, s.Max} {
+		y := p.Forward(x)
+		if !isFinite(x-p.Center) || !isFinite(y) || !isFinite(p.Inverse(y)) {
+			return fmt.Errorf("%s: %w: value %v maps outside the float64 range with center %v, scale %v",
+				p.Method, ErrParamOverflow, x, p.Center, p.Scale)
+		}
+	}
+	return nil
+}
+
+// Forward scales one value: (x - Center) / Scale. A subtraction and a
+// division cannot be fused into one operation, so the result has the same
+// bits on every platform. NaN stays NaN; ±Inf map through the formula.
+func (p Params) Forward(x float64) float64 { return (x - p.Center) / p.Scale }
+
+// Inverse maps a scaled value back to original units: y*Scale + Center.
+//
+// The Go specification (Arithmetic operators, floating-point operators)
+// lets an implementation fuse x*y + z into one operation with a single
+// rounding, which the compiler does for GOARCH=arm64 and for amd64 with
+// GOAMD64=v3, but an explicit conversion to a floating-point type forces the
+// product to be rounded first. The conversion below is what keeps Inverse
+// bit-identical across CPUs; do not remove it.
+func (p Params) Inverse(y float64) float64 { return float64(y*p.Scale) + p.Center }
 
 // Transform scales a numeric array into a new float64 array (float32 when
 // asFloat32), allocated from mem. Nulls stay null, NaN stays NaN.
+//
+// Every value x is converted with float64(x) (exact for float32 and for
+// integers of magnitude up to 2^53, rounded to nearest beyond) and mapped
+// with Forward; a float32 output is float32(Forward(x)), rounded once from
+// the float64 result. Values under null slots are unspecified. arr may be a
+// slice (non-zero offset). Supported types: int8 to int64, uint8 to uint64,
+// float32 and float64; any other type is an error wrapping arrow.ErrType.
 func Transform(mem memory.Allocator, arr arrow.Array, p Params, asFloat32 bool) (arrow.Array, error) {
-	panic("unimplemented")
+	return transform(mem, arr, p, asFloat32)
 }
+
+func isFinite(x float64) bool { return !math.IsInf(x, 0) && !math.IsNaN(x) }
+
+// rat returns the exact value of a finite float64.
+func rat(x float64) *big.Rat { return new(big.Rat).SetFloat64(x) }
