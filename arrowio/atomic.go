@@ -1,0 +1,137 @@
+package arrowio
+
+import (
+	"bufio"
+	"io"
+	"io/fs"
+	"os"
+	"path/filepath"
+	"strings"
+)
+
+// tempFile is the part of *os.File the atomic writer uses.
+type tempFile interface {
+	io.Writer
+	Name() string
+	Chmod(fs.FileMode) error
+	Sync() error
+	Close() error
+}
+
+// Seams overridden by tests to inject failures.
+var (
+	createTemp = func(dir, pattern string) (tempFile, error) { return os.CreateTemp(dir, pattern) }
+	rename     = os.Rename
+	syncDir    = fsyncDir
+)
+
+// tempPattern is the os.CreateTemp pattern for a temporary sibling of a file
+// called name; RemoveTemps recognises the names it produces.
+func tempPattern(name string) string { return "." + name + ".tmp-*" }
+
+// isTempName reports whether a base name is one tempPattern produces.
+func isTempName(name string) bool {
+	ok, _ := filepath.Match(".?*.tmp-*", name)
+	return ok
+}
+
+// outputMode is the permission of committed files (os.CreateTemp uses 0600).
+const outputMode fs.FileMode = 0o644
+
+// writeBufferSize batches the many small writes of callers (and page
+// headers of the Parquet writer) into fewer system calls.
+const writeBufferSize = 256 << 10
+
+// WriteFileAtomic writes a file at path atomically through write: the
+// bytes go to a temporary file ".<name>.tmp-*" in the same folder, which is
+// synced, closed and renamed over path, after which the folder is synced.
+// Missing parent folders are created. On any error the temporary file is
+// removed and nothing appears at path (an existing file at path is left as
+// it was). Errors from write are returned annotated with "write path".
+func WriteFileAtomic(path string, write func(io.Writer) error) error {
+	_, _, err := writeAtomic(path, func(w io.Writer) error {
+		if err := write(w); err != nil {
+			return pathError("write", path, err)
+		}
+		return nil
+	})
+	return err
+}
+
+// writeAtomic is the one atomic-write helper behind every output. It
+// returns the number of bytes written and their SHA-256, computed on the
+// way to the file. write's errors are returned as they are.
+func writeAtomic(path string, write func(io.Writer) error) (n int64, sum string, err error) {
+	dir, name := filepath.Split(path)
+	if dir == "" {
+		dir = "."
+	}
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		return 0, "", err
+	}
+	f, err := createTemp(dir, tempPattern(name))
+	if err != nil {
+		return 0, "", pathError("create", path, bareErr(err))
+	}
+	tmp := f.Name()
+	closed, committed := false, false
+	// Deferred so that a panic in write also removes the temporary file.
+	defer func() {
+		if committed {
+			return
+		}
+		if !closed {
+			f.Close()
+		}
+		os.Remove(tmp)
+	}()
+
+	bw := bufio.NewWriterSize(f, writeBufferSize)
+	tw := newTeeWriter(bw)
+	if err := write(tw); err != nil {
+		return 0, "", err
+	}
+	if tw.err != nil {
+		return 0, "", pathError("write", path, bareErr(tw.err))
+	}
+	if err := bw.Flush(); err != nil {
+		return 0, "", pathError("write", path, bareErr(err))
+	}
+	if err := f.Chmod(outputMode); err != nil {
+		return 0, "", pathError("chmod", path, bareErr(err))
+	}
+	if err := f.Sync(); err != nil {
+		return 0, "", pathError("sync", path, bareErr(err))
+	}
+	closed = true
+	if err := f.Close(); err != nil {
+		return 0, "", pathError("close", path, bareErr(err))
+	}
+	if err := rename(tmp, path); err != nil {
+		return 0, "", pathError("rename", path, bareErr(err))
+	}
+	committed = true
+	// Without the folder sync the rename may not survive a crash. Keep the
+	// promise that an error leaves nothing at path: a caller that treats
+	// this file as a commit point must not find it after a failure.
+	if err := syncDir(dir); err != nil {
+		os.Remove(path)
+		return 0, "", pathError("sync dir", path, err)
+	}
+	return tw.n, tw.sum(), nil
+}
+
+// bareErr strips the *fs.PathError or *os.LinkError wrapper that package os
+// puts around errors on the temporary file, whose name means nothing to
+// the caller; the final path is added instead.
+func bareErr(err error) error {
+	switch e := err.(type) {
+	case *fs.PathError:
+		if strings.Contains(filepath.Base(e.Path), ".tmp-") {
+			return e.Err
+		}
+	case *os.LinkError:
+		return e.Err
+	}
+	return err
+}

@@ -1,0 +1,6 @@
+//go:build !unix
+
+package arrowio
+
+// fsyncDir is a no-op where folders cannot be opened for syncing.
+func fsyncDir(string) error { return nil }

@@ -1,0 +1,214 @@
+package arrowio
+
+import (
+	"errors"
+	"fmt"
+	"io/fs"
+	"os"
+	"path/filepath"
+	"slices"
+	"strings"
+	"time"
+)
+
+// KV is one Hive partition segment, key=value.
+type KV struct{ Key, Value string }
+
+// File is one discovered Parquet input.
+type File struct {
+	Rel       string // slash-separated path relative to the dataset root
+	Abs       string // absolute path on disk
+	Partition []KV   // Hive segments in path order
+	Size      int64
+	ModTime   time.Time
+}
+
+// Discover lists every regular *.parquet file under root, sorted by Rel in
+// byte order. Files and folders whose names start with '_' or '.' are
+// skipped (root itself is never skipped). The suffix is matched case
+// sensitively.
+//
+// root may itself be a symbolic link to a folder, but links below root are
+// not followed: a linked folder is not entered and a linked file is not a
+// regular file, so both are ignored. This keeps a walk finite and every
+// input inside the tree it was asked to read.
+//
+// Partition is parsed from the folder segments of Rel (see ParsePartition).
+// A missing root, or one that is not a folder, is an error naming it; a
+// tree without inputs gives an error wrapping ErrNoInputs.
+func Discover(root string) ([]File, error) {
+	st, err := os.Stat(root)
+	if err != nil {
+		return nil, err
+	}
+	if !st.IsDir() {
+		return nil, pathError("discover", root, errors.New("not a directory"))
+	}
+	absRoot, err := filepath.Abs(root)
+	if err != nil {
+		return nil, pathError("discover", root, err)
+	}
+	// filepath.WalkDir does not descend into a root that is a symbolic
+	// link, so walk the resolved folder but report paths under root.
+	walkRoot, err := filepath.EvalSymlinks(root)
+	if err != nil {
+		return nil, pathError("discover", root, err)
+	}
+
+	var files []File
+	err = filepath.WalkDir(walkRoot, func(p string, d fs.DirEntry, err error) error {
+		if err != nil {
+			return err
+		}
+		if p == walkRoot {
+			return nil
+		}
+		name := d.Name()
+		if strings.HasPrefix(name, "_") || strings.HasPrefix(name, ".") {
+			if d.IsDir() {
+				return filepath.SkipDir
+			}
+			return nil
+		}
+		if !d.Type().IsRegular() || !strings.HasSuffix(name, ".parquet") {
+			return nil
+		}
+		relOS, err := filepath.Rel(walkRoot, p)
+		if err != nil {
+			return pathError("discover", p, err)
+		}
+		rel := filepath.ToSlash(relOS)
+		abs := filepath.Join(absRoot, relOS)
+		part, err := ParsePartition(rel)
+		if err != nil {
+			var pe *fs.PathError
+			if errors.As(err, &pe) {
+				err = pe.Err
+			}
+			return pathError("discover", filepath.Join(root, relOS), err)
+		}
+		info, err := d.Info()
+		if err != nil {
+			return err
+		}
+		files = append(files, File{
+			Rel:       rel,
+			Abs:       abs,
+			Partition: part,
+			Size:      info.Size(),
+			ModTime:   info.ModTime(),
+		})
+		return nil
+	})
+	if err != nil {
+		return nil, err
+	}
+	if len(files) == 0 {
+		return nil, pathError("discover", root, ErrNoInputs)
+	}
+	slices.SortFunc(files, func(a, b File) int { return strings.Compare(a.Rel, b.Rel) })
+	return files, nil
+}
+
+// ParsePartition parses the Hive key=value segments of a slash-separated
+// relative file path. The last segment is the file name and is never a
+// partition; a folder segment without '=' is allowed and is not a partition.
+// A segment splits at its first '='. Keys and values are unescaped Hive
+// style: "%XX" with two hex digits is the byte 0xXX, and a '%' not followed
+// by two hex digits stands for itself. An empty key is an error wrapping
+// ErrBadPartition and naming rel. The same key may appear at two depths;
+// both segments are returned in path order.
+func ParsePartition(rel string) ([]KV, error) {
+	i := strings.LastIndexByte(rel, '/')
+	if i < 0 {
+		return nil, nil
+	}
+	var kvs []KV
+	for seg := range strings.SplitSeq(rel[:i], "/") {
+		k, v, ok := strings.Cut(seg, "=")
+		if !ok {
+			continue
+		}
+		if k == "" {
+			return nil, pathError("parse partition", rel, fmt.Errorf("%w: empty key in %q", ErrBadPartition, seg))
+		}
+		kvs = append(kvs, KV{Key: unescapePartition(k), Value: unescapePartition(v)})
+	}
+	return kvs, nil
+}
+
+// FormatPartition renders kvs as folder segments "k1=v1/k2=v2", escaping
+// each key and value so that ParsePartition of the result followed by a
+// file name gives kvs back (for keys that are not empty).
+func FormatPartition(kvs []KV) string {
+	var b strings.Builder
+	for i, kv := range kvs {
+		if i > 0 {
+			b.WriteByte('/')
+		}
+		b.WriteString(escapePartition(kv.Key))
+		b.WriteByte('=')
+		b.WriteString(escapePartition(kv.Value))
+	}
+	return b.String()
+}
+
+// String renders kv as one escaped folder segment, key=value.
+func (kv KV) String() string { return FormatPartition([]KV{kv}) }
+
+// needsEscape reports whether c is escaped in a partition segment. The set
+// is that of Apache Hive's FileUtils.escapePathName (from memory): control
+// characters, DEL and "#%'*/:=?\{[]^, which covers every byte that would
+// change how a path splits into segments or into key and value.
+func needsEscape(c byte) bool {
+	if c < 0x20 || c == 0x7f {
+		return true
+	}
+	return strings.IndexByte("\"#%'*/:=?\\{[]^", c) >= 0
+}
+
+func escapePartition(s string) string {
+	const hex = "0123456789ABCDEF"
+	var b strings.Builder
+	for i := 0; i < len(s); i++ {
+		c := s[i]
+		if needsEscape(c) {
+			b.WriteByte('%')
+			b.WriteByte(hex[c>>4])
+			b.WriteByte(hex[c&0xf])
+			continue
+		}
+		b.WriteByte(c)
+	}
+	return b.String()
+}
+
+func unescapePartition(s string) string {
+	if !strings.Contains(s, "%") {
+		return s
+	}
+	b := make([]byte, 0, len(s))
+	for i := 0; i < len(s); i++ {
+		if s[i] == '%' && i+2 < len(s) && isHex(s[i+1]) && isHex(s[i+2]) {
+			b = append(b, unhex(s[i+1])<<4|unhex(s[i+2]))
+			i += 2
+			continue
+		}
+		b = append(b, s[i])
+	}
+	return string(b)
+}
+
+func isHex(c byte) bool {
+	return '0' <= c && c <= '9' || 'a' <= c && c <= 'f' || 'A' <= c && c <= 'F'
+}
+
+func unhex(c byte) byte {
+	switch {
+	case c >= 'a':
+		return c - 'a' + 10
+	case c >= 'A':
+		return c - 'A' + 10
+	}
+	return c - '0'
+}

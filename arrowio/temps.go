@@ -1,0 +1,38 @@
+package arrowio
+
+import (
+	"errors"
+	"io/fs"
+	"os"
+	"path/filepath"
+)
+
+// RemoveTemps deletes leftover temporary files of earlier runs under root
+// (regular files named like ".<name>.tmp-<random>", the names the atomic
+// writers use) and reports how many it removed. Symbolic links below
+// root are not followed. A missing root holds no temporary files and is not an error.
+func RemoveTemps(root string) (int, error) {
+	if _, err := os.Lstat(root); errors.Is(err, fs.ErrNotExist) {
+		return 0, nil
+	}
+	// filepath.WalkDir does not enter a root that is a symbolic link.
+	walkRoot, err := filepath.EvalSymlinks(root)
+	if err != nil {
+		return 0, err
+	}
+	n := 0
+	err = filepath.WalkDir(walkRoot, func(p string, d fs.DirEntry, err error) error {
+		if err != nil {
+			return err
+		}
+		if !d.Type().IsRegular() || !isTempName(d.Name()) {
+			return nil
+		}
+		if err := os.Remove(p); err != nil && !errors.Is(err, fs.ErrNotExist) {
+			return err
+		}
+		n++
+		return nil
+	})
+	return n, err
+}

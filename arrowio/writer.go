@@ -1,0 +1,210 @@
+package arrowio
+
+import (
+	"context"
+	"fmt"
+	"io"
+	"os"
+	"slices"
+
+	"github.com/apache/arrow/go/v17/arrow"
+	"github.com/apache/arrow/go/v17/arrow/memory"
+	"github.com/apache/arrow/go/v17/parquet"
+	"github.com/apache/arrow/go/v17/parquet/compress"
+	"github.com/apache/arrow/go/v17/parquet/pqarrow"
+
+	"github.com/lakescale/lakescale/internal/invariants"
+)
+
+// Compression names an output codec.
+type Compression string
+
+const (
+	Zstd   Compression = "zstd"
+	Snappy Compression = "snappy"
+	None   Compression = "none"
+)
+
+// DefaultRowGroupRows caps the rows of one row group when
+// WriteOptions.RowGroupRows is 0. About a million rows keeps a float64
+// column chunk near 8 MiB: large enough for efficient scans, small enough
+// that a buffered row group of a dozen columns stays around 100 MiB
+// (common practice puts row groups in the tens to hundreds of MiB).
+const DefaultRowGroupRows = 1 << 20
+
+// CreatedBy is the constant written as the Parquet footer's created_by, so
+// that no library version string makes outputs differ between builds.
+const CreatedBy = "lakescale"
+
+// WriteOptions configure Parquet outputs.
+type WriteOptions struct {
+	Compression  Compression // "" means Zstd
+	RowGroupRows int64       // 0: DefaultRowGroupRows
+	Metadata     map[string]string
+	// Mem allocates the writer's buffers; nil means memory.DefaultAllocator.
+	Mem memory.Allocator
+}
+
+// Written describes a committed output file.
+type Written struct {
+	Rows   int64
+	Bytes  int64
+	SHA256 string // lowercase hex
+}
+
+func (c Compression) codec() (compress.Compression, error) {
+	switch c {
+	case Zstd, "":
+		return compress.Codecs.Zstd, nil
+	case Snappy:
+		return compress.Codecs.Snappy, nil
+	case None:
+		return compress.Codecs.Uncompressed, nil
+	}
+	return 0, fmt.Errorf("unknown compression %q (want zstd, snappy or none)", string(c))
+}
+
+// writerProps builds deterministic writer properties for schema: the
+// chosen codec, a constant created_by, the row-group cap, and dictionary
+// encoding off for float and double columns, whose high-entropy values
+// rarely repeat (a dictionary there costs CPU and is usually abandoned
+// for plain encoding once the dictionary page fills).
+func writerProps(schema *arrow.Schema, opts WriteOptions, mem memory.Allocator) (*parquet.WriterProperties, pqarrow.ArrowWriterProperties, error) {
+	codec, err := opts.Compression.codec()
+	if err != nil {
+		return nil, pqarrow.ArrowWriterProperties{}, err
+	}
+	rg := opts.RowGroupRows
+	if rg <= 0 {
+		rg = DefaultRowGroupRows
+	}
+	arrowProps := pqarrow.NewArrowWriterProperties(pqarrow.WithStoreSchema(), pqarrow.WithAllocator(mem))
+	base := []parquet.WriterProperty{
+		parquet.WithAllocator(mem),
+		parquet.WithCompression(codec),
+		parquet.WithCreatedBy(CreatedBy),
+		parquet.WithMaxRowGroupLength(rg),
+		parquet.WithDictionaryDefault(true),
+	}
+	pqSchema, err := pqarrow.ToParquet(schema, parquet.NewWriterProperties(base...), arrowProps)
+	if err != nil {
+		return nil, pqarrow.ArrowWriterProperties{}, err
+	}
+	for i := 0; i < pqSchema.NumColumns(); i++ {
+		col := pqSchema.Column(i)
+		switch col.PhysicalType() {
+		case parquet.Types.Float, parquet.Types.Double:
+			base = append(base, parquet.WithDictionaryPath(col.ColumnPath(), false))
+		}
+	}
+	return parquet.NewWriterProperties(base...), arrowProps, nil
+}
+
+// WriteParquetAtomic writes a Parquet file at path atomically: fill writes
+// record batches through w (check ctx between batches); on any error or
+// cancellation the temporary file is removed and nothing appears at path.
+// The SHA-256 is computed while writing.
+//
+// The file stores the Arrow schema (so types round-trip), opts.Metadata
+// in the footer's key-value metadata in sorted key order, and a constant
+// created_by; the same input gives the same bytes. ctx is checked before
+// fill runs and after it returns; a cancelled ctx gives context.Cause(ctx)
+// unchanged. Other errors, including fill's, come back as "write path: err";
+// do not add the path again. fill must not close w.
+func WriteParquetAtomic(ctx context.Context, path string, schema *arrow.Schema, opts WriteOptions, fill func(w *pqarrow.FileWriter) error) (Written, error) {
+	if err := context.Cause(ctx); err != nil {
+		return Written{}, err
+	}
+	mem := opts.Mem
+	if mem == nil {
+		mem = memory.DefaultAllocator
+	}
+	props, arrowProps, err := writerProps(schema, opts, mem)
+	if err != nil {
+		return Written{}, pathError("write", path, err)
+	}
+	keys := make([]string, 0, len(opts.Metadata))
+	for k := range opts.Metadata {
+		if k == arrowSchemaKey {
+			return Written{}, pathError("write", path, fmt.Errorf("metadata key %q is reserved", k))
+		}
+		keys = append(keys, k)
+	}
+	slices.Sort(keys)
+
+	var rows int64
+	n, sum, err := writeAtomic(path, func(w io.Writer) error {
+		r, err := writeParquet(ctx, w, schema, props, arrowProps, keys, opts.Metadata, fill)
+		if err == nil || err == context.Cause(ctx) {
+			rows = r
+			return err
+		}
+		return pathError("write", path, err)
+	})
+	if err != nil {
+		return Written{}, err
+	}
+	if invariants.Enabled {
+		if st, serr := os.Stat(path); serr == nil && st.Size() != n {
+			panic(fmt.Sprintf("arrowio: wrote %d bytes to %s but it has %d", n, path, st.Size()))
+		}
+	}
+	return Written{Rows: rows, Bytes: n, SHA256: sum}, nil
+}
+
+// writeParquet runs the pqarrow writer over w. The writer panics on some
+// sink failures (the magic bytes, page writes); when w has recorded an I/O
+// error such a panic is that error and is returned as one. Any other panic
+// is a bug and is re-raised after the caller's cleanup runs.
+func writeParquet(ctx context.Context, w io.Writer, schema *arrow.Schema, props *parquet.WriterProperties, arrowProps pqarrow.ArrowWriterProperties, keys []string, meta map[string]string, fill func(*pqarrow.FileWriter) error) (rows int64, err error) {
+	tw, _ := w.(*teeWriter)
+	var fw *pqarrow.FileWriter
+	defer func() {
+		if p := recover(); p != nil {
+			if tw == nil || tw.err == nil {
+				panic(p)
+			}
+			closeQuietly(fw)
+			rows, err = 0, tw.err
+		}
+	}()
+	fw, err = pqarrow.NewFileWriter(schema, w, props, arrowProps)
+	if err != nil {
+		return 0, err
+	}
+	if err := context.Cause(ctx); err != nil {
+		closeQuietly(fw)
+		return 0, err
+	}
+	ferr := fill(fw)
+	if err := context.Cause(ctx); err != nil {
+		closeQuietly(fw)
+		return 0, err
+	}
+	if ferr != nil {
+		closeQuietly(fw)
+		return 0, ferr
+	}
+	for _, k := range keys {
+		if err := fw.AppendKeyValueMetadata(k, meta[k]); err != nil {
+			closeQuietly(fw)
+			return 0, err
+		}
+	}
+	if err := fw.Close(); err != nil {
+		return 0, err
+	}
+	// file.Writer.Close can drop an error from writing the footer; the tee
+	// writer keeps it, and writeAtomic checks it after this returns.
+	return int64(fw.NumRows()), nil
+}
+
+// closeQuietly closes fw on an error path to release its buffers; the
+// output is discarded, so its error (or panic) does not matter.
+func closeQuietly(fw *pqarrow.FileWriter) {
+	if fw == nil {
+		return
+	}
+	defer func() { _ = recover() }()
+	_ = fw.Close()
+}
