@@ -1,0 +1,192 @@
+package main
+
+import (
+	"fmt"
+
+	"github.com/urfave/cli/v2"
+
+	"github.com/lakescale/lakescale/jobs"
+)
+
+// usageError is a command-line mistake: exit code 2.
+type usageError struct{ err error }
+
+func (e usageError) Error() string { return e.err.Error() }
+func (e usageError) Unwrap() error { return e.err }
+
+const exitCodesHelp = `Exit codes: 0 success, 1 the job failed (nothing committed), 2 usage error, 130 interrupted.`
+
+var (
+	inputFlag   = &cli.StringFlag{Name: "input", Aliases: []string{"i"}, Usage: "input dataset `DIR` (Parquet files, flat or Hive key=value folders)"}
+	outputFlag  = &cli.StringFlag{Name: "output", Aliases: []string{"o"}, Usage: "output dataset `DIR` (absent or empty unless --overwrite)"}
+	jobFlag     = &cli.StringFlag{Name: "job", Usage: "TOML job `FILE`; flags override it"}
+	columnsFlag = &cli.StringSliceFlag{Name: "columns", Usage: "scale the numeric columns matching `PATTERN,...` (glob; default every integer and float column)"}
+	excludeFlag = &cli.StringSliceFlag{Name: "exclude", Usage: "leave the columns matching `PATTERN,...` unscaled"}
+	methodFlag  = &cli.StringFlag{Name: "method", Usage: "scaling `METHOD`: zscore, minmax, meannorm, maxabs or none (default zscore)"}
+	stdFlag     = &cli.StringFlag{Name: "std", Usage: "standard deviation for zscore: `population` (divide by n, default) or sample (n-1)"}
+	workersFlag = &cli.IntFlag{Name: "workers", Usage: "files processed at once (default: number of CPUs)"}
+	overFlag    = &cli.BoolFlag{Name: "overwrite", Usage: "replace a committed dataset in the output directory"}
+	compFlag    = &cli.StringFlag{Name: "compression", Usage: "output `CODEC`: zstd (default), snappy or none"}
+	typeFlag    = &cli.StringFlag{Name: "output-type", Usage: "type of scaled columns: float64 (default) or float32"}
+	infFlag     = &cli.StringFlag{Name: "on-infinity", Usage: "an infinite value in a selected column: error (default) or skip (count it, leave it out of the statistics)"}
+	statsFlag   = &cli.StringFlag{Name: "stats", Usage: "statistics `FILE` to write"}
+	paramsFlag  = &cli.StringFlag{Name: "params", Usage: "manifest or statistics `FILE` to take parameters from"}
+)
+
+func newApp() *cli.App {
+	app := &cli.App{
+		Name:            "lakescale",
+		Usage:           "feature-scale numeric columns of partitioned Parquet datasets with exact statistics",
+		Description:     exitCodesHelp,
+		HideHelpCommand: false,
+		ExitErrHandler:  func(*cli.Context, error) {},
+		OnUsageError:    onUsageError,
+		Action: func(c *cli.Context) error {
+			if c.NArg() > 0 {
+				return usageError{fmt.Errorf("unknown command %q", c.Args().First())}
+			}
+			_ = cli.ShowAppHelp(c)
+			return usageError{fmt.Errorf("no command given")}
+		},
+		Commands: []*cli.Command{
+			{
+				Name:      "run",
+				Usage:     "measure exact statistics, then write scaled copies and a manifest",
+				UsageText: "lakescale run --input DIR --output DIR [--job FILE] [--columns PATTERN,...] [--method M] [--std sample|population] [--workers N] [--overwrite]",
+				Flags:     []cli.Flag{inputFlag, outputFlag, jobFlag, columnsFlag, excludeFlag, methodFlag, stdFlag, workersFlag, overFlag, compFlag, typeFlag, infFlag},
+				Action: func(c *cli.Context) error {
+					cfg, err := config(c)
+					if err != nil {
+						return err
+					}
+					return jobs.Run(c.Context, cfg)
+				},
+			},
+			{
+				Name:      "measure",
+				Usage:     "pass one only: write the merged statistics (and fitted parameters) to a file",
+				UsageText: "lakescale measure --input DIR --stats FILE [--job FILE] [--columns PATTERN,...] [--method M] [--std sample|population] [--workers N]",
+				Flags:     []cli.Flag{inputFlag, statsFlag, jobFlag, columnsFlag, excludeFlag, methodFlag, stdFlag, workersFlag, infFlag},
+				Action: func(c *cli.Context) error {
+					cfg, err := config(c)
+					if err != nil {
+						return err
+					}
+					cfg.StatsPath = c.String(statsFlag.Name)
+					return jobs.Measure(c.Context, cfg)
+				},
+			},
+			{
+				Name:      "apply",
+				Usage:     "pass two only: write scaled copies with parameters from a manifest or statistics file",
+				UsageText: "lakescale apply --input DIR --output DIR --params FILE [--workers N] [--overwrite]",
+				Flags:     []cli.Flag{inputFlag, outputFlag, paramsFlag, jobFlag, workersFlag, overFlag, compFlag, typeFlag, infFlag},
+				Action: func(c *cli.Context) error {
+					cfg, err := config(c)
+					if err != nil {
+						return err
+					}
+					cfg.ParamsPath = c.String(paramsFlag.Name)
+					return jobs.Apply(c.Context, cfg)
+				},
+			},
+			{
+				Name:      "show",
+				Usage:     "print a manifest or statistics file as a table",
+				ArgsUsage: "FILE",
+				Action: func(c *cli.Context) error {
+					path, err := oneArg(c, "FILE")
+					if err != nil {
+						return err
+					}
+					return jobs.Show(c.App.Writer, path)
+				},
+			},
+			{
+				Name:      "verify",
+				Usage:     "re-hash every output file and check it against DIR/_manifest.json",
+				ArgsUsage: "DIR",
+				Action: func(c *cli.Context) error {
+					dir, err := oneArg(c, "DIR")
+					if err != nil {
+						return err
+					}
+					return jobs.Verify(c.Context, c.App.Writer, dir)
+				},
+			},
+			{
+				Name:      "demo",
+				Usage:     "write an invented wind-turbine telemetry lake under DIR (default lakescale-demo) and scale it",
+				ArgsUsage: "[DIR]",
+				Flags:     []cli.Flag{workersFlag},
+				Action: func(c *cli.Context) error {
+					if c.NArg() > 1 {
+						return usageError{fmt.Errorf("demo takes at most one DIR, got %d arguments", c.NArg())}
+					}
+					dir := c.Args().First()
+					if dir == "" {
+						dir = "lakescale-demo"
+					}
+					return jobs.Demo(c.Context, dir, jobs.Config{Workers: c.Int(workersFlag.Name), Version: version, Out: c.App.Writer})
+				},
+			},
+			{
+				Name:  "version",
+				Usage: "print the program version",
+				Action: func(c *cli.Context) error {
+					_, err := fmt.Fprintln(c.App.Writer, jobs.Version(version))
+					return err
+				},
+			},
+		},
+	}
+	for _, cmd := range app.Commands {
+		cmd.Description = exitCodesHelp
+		cmd.OnUsageError = onUsageError
+	}
+	return app
+}
+
+func onUsageError(_ *cli.Context, err error, _ bool) error { return usageError{err} }
+
+func oneArg(c *cli.Context, name string) (string, error) {
+	if c.NArg() != 1 {
+		return "", usageError{fmt.Errorf("%s takes exactly one %s argument, got %d", c.Command.Name, name, c.NArg())}
+	}
+	return c.Args().First(), nil
+}
+
+// config turns the flags a command has into a jobs.Config.
+func config(c *cli.Context) (jobs.Config, error) {
+	if c.NArg() > 0 {
+		return jobs.Config{}, usageError{fmt.Errorf("unexpected argument %q", c.Args().First())}
+	}
+	str := func(f *cli.StringFlag) *string {
+		if !c.IsSet(f.Name) {
+			return nil
+		}
+		v := c.String(f.Name)
+		return &v
+	}
+	o := jobs.Overrides{
+		Input: str(inputFlag), Output: str(outputFlag), Method: str(methodFlag), Std: str(stdFlag),
+		Compression: str(compFlag), OutputType: str(typeFlag), OnInfinity: str(infFlag),
+		Overwrite: c.Bool(overFlag.Name),
+	}
+	if c.IsSet(columnsFlag.Name) {
+		o.Columns = c.StringSlice(columnsFlag.Name)
+	}
+	if c.IsSet(excludeFlag.Name) {
+		o.Exclude = c.StringSlice(excludeFlag.Name)
+	}
+	if c.IsSet(workersFlag.Name) {
+		n := c.Int(workersFlag.Name)
+		o.Workers = &n
+	}
+	cfg, err := jobs.Load(c.String(jobFlag.Name), o)
+	if err != nil {
+		return jobs.Config{}, err
+	}
+	cfg.Version, cfg.Out = version, c.App.Writer
+	return cfg, nil
+}

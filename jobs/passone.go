@@ -1,0 +1,135 @@
+package jobs
+
+import (
+	"context"
+	"fmt"
+
+	"github.com/apache/arrow/go/v17/arrow/memory"
+	"golang.org/x/sync/errgroup"
+
+	"github.com/lakescale/lakescale/arrowio"
+	"github.com/lakescale/lakescale/stats"
+)
+
+// fileResult is what pass one learns about one input file.
+type fileResult struct {
+	Rows   int64
+	Bytes  int64
+	SHA256 string
+	Accs   []*stats.Accumulator // one per selected column, plan order
+}
+
+// forEachFile runs task for every file on one pool of cfg.Workers
+// goroutines, stopping at the first error.
+func forEachFile(ctx context.Context, workers int, n int, task func(ctx context.Context, i int) error) error {
+	g, gctx := errgroup.WithContext(ctx)
+	g.SetLimit(workers)
+	for i := range n {
+		if gctx.Err() != nil {
+			break
+		}
+		g.Go(func() error { return task(gctx, i) })
+	}
+	if err := g.Wait(); err != nil {
+		return err
+	}
+	return context.Cause(ctx)
+}
+
+// passOne computes every file's statistics; results are in file order.
+func passOne(ctx context.Context, cfg *Config, p *plan) ([]fileResult, error) {
+	results := make([]fileResult, len(p.Files))
+	err := forEachFile(ctx, cfg.Workers, len(p.Files), func(ctx context.Context, i int) error {
+		res, err := measureFile(ctx, cfg, p, i)
+		if err != nil {
+			return fmt.Errorf("partition %s: %w", partitionName(p.Files[i]), err)
+		}
+		results[i] = res
+		return nil
+	})
+	return results, err
+}
+
+// measureFile streams one file's selected columns into fresh accumulators.
+func measureFile(ctx context.Context, cfg *Config, p *plan, i int) (fileResult, error) {
+	f := p.Files[i]
+	r, err := arrowio.Open(f.Abs, memory.DefaultAllocator)
+	if err != nil {
+		return fileResult{}, err
+	}
+	defer r.Close()
+	if r.NumRows() == 0 {
+		return fileResult{}, fmt.Errorf("%w: %s has no rows", ErrEmptyPartition, f.Rel)
+	}
+	idx, err := columnIndices(r.Schema(), p.Columns, p.Files[0].Rel, f.Rel)
+	if err != nil {
+		return fileResult{}, err
+	}
+	accs := make([]*stats.Accumulator, len(p.Columns))
+	for j, c := range p.Columns {
+		accs[j] = stats.NewAccumulator(c.Kind)
+	}
+	for rg := range r.NumRowGroups() {
+		if err := addRowGroup(ctx, cfg, r, rg, idx, accs); err != nil {
+			return fileResult{}, fmt.Errorf("%s: %w", f.Rel, err)
+		}
+		if cfg.InfPolicy == InfError {
+			for j, a := range accs {
+				if pos, neg := a.Infinities(); pos+neg > 0 {
+					return fileResult{}, fmt.Errorf("%w: %s: column %s: row group %d has %d +Inf and %d -Inf values (want finite values; --on-infinity skip leaves them out of the statistics)",
+						ErrInfinite, f.Rel, p.Columns[j].Name, rg, pos, neg)
+				}
+			}
+		}
+	}
+	size, sum, err := arrowio.HashFile(f.Abs)
+	if err != nil {
+		return fileResult{}, err
+	}
+	return fileResult{Rows: r.NumRows(), Bytes: size, SHA256: sum, Accs: accs}, nil
+}
+
+// addRowGroup feeds one row group's batches into the accumulators,
+// checking for cancellation between batches.
+func addRowGroup(ctx context.Context, cfg *Config, r *arrowio.Reader, rg int, idx []int, accs []*stats.Accumulator) error {
+	rr, err := r.Records(ctx, rg, idx, cfg.BatchRows)
+	if err != nil {
+		return err
+	}
+	defer rr.Release()
+	for rr.Next() {
+		if err := context.Cause(ctx); err != nil {
+			return err
+		}
+		rec := rr.Record()
+		for j, a := range accs {
+			if err := a.Add(rec.Column(j)); err != nil {
+				return fmt.Errorf("column %s: %w", rec.ColumnName(j), err)
+			}
+		}
+	}
+	if err := rr.Err(); err != nil {
+		return fmt.Errorf("row group %d: %w", rg, err)
+	}
+	return nil
+}
+
+// merge combines per-file states exactly, for the files where use is true
+// (all when use is nil).
+func merge(p *plan, results []fileResult, use []bool) ([]*stats.Accumulator, error) {
+	total := make([]*stats.Accumulator, len(p.Columns))
+	for j, c := range p.Columns {
+		total[j] = stats.NewAccumulator(c.Kind)
+	}
+	for i, res := range results {
+		if use != nil && !use[i] {
+			continue
+		}
+		for j, a := range res.Accs {
+			if err := total[j].Merge(a); err != nil {
+				return nil, fmt.Errorf("column %s: %w", p.Columns[j].Name, err)
+			}
+		}
+	}
+	return total, nil
+}

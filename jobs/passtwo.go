@@ -1,0 +1,188 @@
+package jobs
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"path/filepath"
+
+	"github.com/apache/arrow/go/v17/arrow"
+	"github.com/apache/arrow/go/v17/arrow/array"
+	"github.com/apache/arrow/go/v17/arrow/memory"
+	"github.com/apache/arrow/go/v17/parquet/pqarrow"
+
+	"github.com/lakescale/lakescale/arrowio"
+	"github.com/lakescale/lakescale/manifests"
+	"github.com/lakescale/lakescale/stats"
+)
+
+// written is what pass two learns about one file.
+type written struct {
+	In  fileResult // rows, bytes and hash of the input (Accs unused)
+	Out arrowio.Written
+}
+
+// passTwo writes every input's scaled copy; results are in file order.
+// hashInputs asks it to hash inputs too (apply has no pass one).
+func passTwo(ctx context.Context, cfg *Config, p *plan, params []stats.Params, meta string, hashInputs bool) ([]written, error) {
+	results := make([]written, len(p.Files))
+	err := forEachFile(ctx, cfg.Workers, len(p.Files), func(ctx context.Context, i int) error {
+		res, err := scaleFile(ctx, cfg, p, i, params, meta, hashInputs)
+		if err != nil {
+			return fmt.Errorf("partition %s: %w", partitionName(p.Files[i]), err)
+		}
+		results[i] = res
+		return nil
+	})
+	return results, err
+}
+
+// outputSchema replaces each selected column by a nullable float column.
+func outputSchema(in *arrow.Schema, idx []int, float32Out bool) *arrow.Schema {
+	fields := append([]arrow.Field(nil), in.Fields()...)
+	var t arrow.DataType = arrow.PrimitiveTypes.Float64
+	if float32Out {
+		t = arrow.PrimitiveTypes.Float32
+	}
+	for _, i := range idx {
+		fields[i] = arrow.Field{Name: fields[i].Name, Type: t, Nullable: true}
+	}
+	return arrow.NewSchema(fields, nil)
+}
+
+// scaleFile streams one input file into its scaled output.
+func scaleFile(ctx context.Context, cfg *Config, p *plan, i int, params []stats.Params, meta string, hashInputs bool) (written, error) {
+	f := p.Files[i]
+	r, err := arrowio.Open(f.Abs, memory.DefaultAllocator)
+	if err != nil {
+		return written{}, err
+	}
+	defer r.Close()
+	if r.NumRows() == 0 {
+		return written{}, fmt.Errorf("%w: %s has no rows", ErrEmptyPartition, f.Rel)
+	}
+	idx, err := columnIndices(r.Schema(), p.Columns, p.Files[0].Rel, f.Rel)
+	if err != nil {
+		return written{}, err
+	}
+	// which[k] is the plan column for schema field k, or -1.
+	which := make([]int, r.Schema().NumFields())
+	for k := range which {
+		which[k] = -1
+	}
+	for j, k := range idx {
+		which[k] = j
+	}
+	schema := outputSchema(r.Schema(), idx, cfg.Float32)
+	opts := arrowio.WriteOptions{
+		Compression: cfg.Compression,
+		Metadata:    map[string]string{manifests.MetadataKey: meta},
+	}
+	dst := filepath.Join(cfg.Output, filepath.FromSlash(f.Rel))
+	out, err := arrowio.WriteParquetAtomic(ctx, dst, schema, opts, func(w *pqarrow.FileWriter) error {
+		for rg := range r.NumRowGroups() {
+			if err := scaleRowGroup(ctx, cfg, r, rg, schema, which, p.Columns, params, w); err != nil {
+				return fmt.Errorf("%s: %w", f.Rel, err)
+			}
+		}
+		return nil
+	})
+	if err != nil {
+		return written{}, err
+	}
+	res := written{In: fileResult{Rows: r.NumRows()}, Out: out}
+	if out.Rows != r.NumRows() {
+		return written{}, fmt.Errorf("%s: wrote %d rows, read %d", f.Rel, out.Rows, r.NumRows())
+	}
+	if hashInputs {
+		if res.In.Bytes, res.In.SHA256, err = arrowio.HashFile(f.Abs); err != nil {
+			return written{}, err
+		}
+	}
+	return res, nil
+}
+
+// scaleRowGroup writes one input row group as one output row group.
+func scaleRowGroup(ctx context.Context, cfg *Config, r *arrowio.Reader, rg int, schema *arrow.Schema,
+	which []int, cols []column, params []stats.Params, w *pqarrow.FileWriter) error {
+	rr, err := r.Records(ctx, rg, nil, cfg.BatchRows)
+	if err != nil {
+		return err
+	}
+	defer rr.Release()
+	started := false
+	arrays := make([]arrow.Array, len(which))
+	for rr.Next() {
+		if err := context.Cause(ctx); err != nil {
+			return err
+		}
+		rec := rr.Record()
+		if rec.NumRows() == 0 {
+			continue
+		}
+		for k := range arrays {
+			j := which[k]
+			if j < 0 {
+				arrays[k] = rec.Column(k)
+				arrays[k].Retain()
+				continue
+			}
+			a, err := stats.Transform(memory.DefaultAllocator, rec.Column(k), params[j], cfg.Float32)
+			if err != nil {
+				releaseAll(arrays[:k])
+				return fmt.Errorf("column %s: %w", cols[j].Name, err)
+			}
+			arrays[k] = a
+			if cfg.InfPolicy == InfError {
+				if n := countInf(a); n > 0 {
+					releaseAll(arrays[:k+1])
+					return fmt.Errorf("%w: column %s: row group %d: %d scaled values are infinite (want finite values; --on-infinity skip lets them through)",
+						ErrInfinite, cols[j].Name, rg, n)
+				}
+			}
+		}
+		out := array.NewRecord(schema, arrays, rec.NumRows())
+		releaseAll(arrays)
+		if !started {
+			w.NewBufferedRowGroup()
+			started = true
+		}
+		err := w.WriteBuffered(out)
+		out.Release()
+		if err != nil {
+			return fmt.Errorf("row group %d: %w", rg, err)
+		}
+	}
+	if err := rr.Err(); err != nil {
+		return fmt.Errorf("row group %d: %w", rg, err)
+	}
+	return nil
+}
+
+func releaseAll(as []arrow.Array) {
+	for _, a := range as {
+		if a != nil {
+			a.Release()
+		}
+	}
+}
+
+// countInf counts infinite values in a scaled (float) array.
+func countInf(a arrow.Array) int {
+	n := 0
+	switch a := a.(type) {
+	case *array.Float64:
+		for i, v := range a.Float64Values() {
+			if math.IsInf(v, 0) && a.IsValid(i) {
+				n++
+			}
+		}
+	case *array.Float32:
+		for i, v := range a.Float32Values() {
+			if math.IsInf(float64(v), 0) && a.IsValid(i) {
+				n++
+			}
+		}
+	}
+	return n
+}

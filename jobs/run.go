@@ -1,0 +1,376 @@
+package jobs
+
+import (
+	"bytes"
+	"context"
+	"crypto/sha256"
+	"encoding/hex"
+	"fmt"
+	"io"
+	"path/filepath"
+	"runtime"
+	"runtime/debug"
+	"sort"
+	"time"
+
+	"github.com/apache/arrow/go/v17/arrow/memory"
+
+	"github.com/lakescale/lakescale/arrowio"
+	"github.com/lakescale/lakescale/manifests"
+	"github.com/lakescale/lakescale/stats"
+)
+
+// File names inside an output tree.
+const (
+	ManifestName = "_manifest.json"
+	markerName   = "_uncommitted"
+)
+
+// Run makes both passes: statistics over every input, then scaled copies,
+// then the manifest.
+func Run(ctx context.Context, cfg Config) error {
+	if err := cfg.checkPaths(true); err != nil {
+		return err
+	}
+	p, err := discover(cfg.Input, cfg.Rules)
+	if err != nil {
+		return err
+	}
+	results, err := passOne(ctx, &cfg, p)
+	if err != nil {
+		return err
+	}
+	cols, params, err := fitColumns(p, results)
+	if err != nil {
+		return err
+	}
+	// The output is touched only once the statistics are known to be good.
+	if err := prepareOutput(&cfg); err != nil {
+		return err
+	}
+	m := cfg.newManifest(manifests.KindDataset, cols)
+	outs, err := passTwo(ctx, &cfg, p, params, fileMeta(m), false)
+	if err != nil {
+		return err
+	}
+	for i := range outs {
+		outs[i].In = results[i]
+	}
+	return commit(ctx, &cfg, p, m, outs)
+}
+
+// Measure makes pass one only and writes the statistics file.
+func Measure(ctx context.Context, cfg Config) error {
+	if err := cfg.checkPaths(false); err != nil {
+		return err
+	}
+	if cfg.StatsPath == "" {
+		return fmt.Errorf("%w: no statistics file: give --stats", ErrUsage)
+	}
+	p, err := discover(cfg.Input, cfg.Rules)
+	if err != nil {
+		return err
+	}
+	results, err := passOne(ctx, &cfg, p)
+	if err != nil {
+		return err
+	}
+	cols, _, err := fitColumns(p, results)
+	if err != nil {
+		return err
+	}
+	m := cfg.newManifest(manifests.KindStatistics, cols)
+	for i, f := range p.Files {
+		m.Inputs = append(m.Inputs, input(f, results[i]))
+	}
+	if err := writeManifest(cfg.StatsPath, m); err != nil {
+		return err
+	}
+	fmt.Fprintf(cfg.Out, "measured %d columns over %d files (%d rows); statistics in %s\n",
+		len(cols), len(p.Files), totalRows(results), cfg.StatsPath)
+	return nil
+}
+
+// Apply makes pass two only, with parameters from a manifest or a
+// statistics file; nothing is re-measured.
+func Apply(ctx context.Context, cfg Config) error {
+	if err := cfg.checkPaths(true); err != nil {
+		return err
+	}
+	if cfg.ParamsPath == "" {
+		return fmt.Errorf("%w: no parameters: give --params", ErrUsage)
+	}
+	raw, err := arrowio.ReadFile(cfg.ParamsPath)
+	if err != nil {
+		return err
+	}
+	src, err := manifests.Decode(bytes.NewReader(raw))
+	if err != nil {
+		return fmt.Errorf("%s: %w", cfg.ParamsPath, err)
+	}
+	files, err := arrowio.Discover(cfg.Input)
+	if err != nil {
+		return err
+	}
+	p := &plan{Files: files}
+	params := make([]stats.Params, len(src.Columns))
+	if err := p.columnsFrom(src); err != nil {
+		return err
+	}
+	for j, c := range src.Columns {
+		params[j] = stats.Params{Method: stats.Method(c.Method), Center: float64(c.Params.Center), Scale: float64(c.Params.Scale)}
+	}
+	if err := prepareOutput(&cfg); err != nil {
+		return err
+	}
+	m := cfg.newManifest(manifests.KindDataset, src.Columns)
+	m.Job.Settings.Rules = src.Job.Settings.Rules
+	m.Job.Settings.Std = src.Job.Settings.Std
+	m.Job.SHA256 = m.Job.Settings.Digest()
+	sum := sha256.Sum256(raw)
+	m.ParamsSource = &manifests.ParamsSource{Path: filepath.ToSlash(cfg.ParamsPath), Kind: src.Kind, SHA256: hex.EncodeToString(sum[:])}
+	outs, err := passTwo(ctx, &cfg, p, params, fileMeta(m), true)
+	if err != nil {
+		return err
+	}
+	return commit(ctx, &cfg, p, m, outs)
+}
+
+// columnsFrom selects the columns a parameters document names, checking
+// that the first input has them with the recorded types.
+func (p *plan) columnsFrom(src *manifests.Manifest) error {
+	r, err := arrowio.Open(p.Files[0].Abs, memory.DefaultAllocator)
+	if err != nil {
+		return err
+	}
+	defer r.Close()
+	sc := r.Schema()
+	for _, c := range src.Columns {
+		fi := sc.FieldIndices(c.Name)
+		if len(fi) != 1 {
+			return fmt.Errorf("%s: %w: column %s from the parameters is missing", p.Files[0].Rel, ErrColumn, c.Name)
+		}
+		f := sc.Field(fi[0])
+		kind, ok := stats.KindOf(f.Type)
+		if !ok || f.Type.String() != c.Type {
+			return fmt.Errorf("%s: %w: column %s is %s, the parameters were fitted on %s", p.Files[0].Rel, ErrSchemaMismatch, c.Name, f.Type, c.Type)
+		}
+		p.Columns = append(p.Columns, column{Name: c.Name, Type: f.Type, Kind: kind})
+	}
+	return nil
+}
+
+// fitColumns merges the per-file states and fits each column's method.
+func fitColumns(p *plan, results []fileResult) ([]manifests.Column, []stats.Params, error) {
+	totals, err := merge(p, results, nil)
+	if err != nil {
+		return nil, nil, err
+	}
+	cols := make([]manifests.Column, len(p.Columns))
+	params := make([]stats.Params, len(p.Columns))
+	for j, c := range p.Columns {
+		s := totals[j].Summary()
+		prm, warns, err := stats.Fit(c.Rule.Method, c.Rule.Options, s)
+		if err != nil {
+			return nil, nil, fmt.Errorf("column %s: %w", c.Name, err)
+		}
+		params[j] = prm
+		cols[j] = manifests.Column{
+			Name:     c.Name,
+			Type:     c.Type.String(),
+			Method:   string(prm.Method),
+			Options:  options(prm),
+			Stats:    wireStats(s),
+			Params:   manifests.Params{Center: manifests.Float(prm.Center), Scale: manifests.Float(prm.Scale)},
+			Warnings: make([]string, len(warns)),
+		}
+		for k, w := range warns {
+			cols[j].Warnings[k] = string(w)
+		}
+	}
+	return cols, params, nil
+}
+
+func options(p stats.Params) manifests.Options {
+	var o manifests.Options
+	switch p.Method {
+	case stats.ZScore:
+		o.Std = string(p.Options.Std)
+	case stats.MinMax:
+		lo, hi := manifests.Float(p.Options.RangeMin), manifests.Float(p.Options.RangeMax)
+		o.RangeMin, o.RangeMax = &lo, &hi
+	}
+	return o
+}
+
+func wireStats(s stats.Summary) manifests.Stats {
+	return manifests.Stats{
+		Rows: s.Rows, Count: s.Count, Nulls: s.Nulls, NaNs: s.NaNs, PosInf: s.PosInf, NegInf: s.NegInf,
+		Mean: manifests.Float(s.Mean), StdSample: manifests.Float(s.StdSample), StdPopulation: manifests.Float(s.StdPopulation),
+		Min: manifests.Float(s.Min), Max: manifests.Float(s.Max),
+	}
+}
+
+func input(f arrowio.File, r fileResult) manifests.Input {
+	part := make(map[string]string, len(f.Partition))
+	for _, kv := range f.Partition {
+		part[kv.Key] = kv.Value
+	}
+	return manifests.Input{Path: f.Rel, Partition: part, Rows: r.Rows, Bytes: r.Bytes, SHA256: r.SHA256}
+}
+
+func totalRows(rs []fileResult) int64 {
+	var n int64
+	for _, r := range rs {
+		n += r.Rows
+	}
+	return n
+}
+
+// newManifest starts a document with the tool, job and columns filled in.
+func (c *Config) newManifest(kind string, cols []manifests.Column) *manifests.Manifest {
+	m := &manifests.Manifest{
+		ManifestVersion: manifests.Version,
+		Kind:            kind,
+		Tool:            toolInfo(c.Version),
+		Job:             manifests.Job{Settings: c.settings()},
+		Columns:         cols,
+		Inputs:          []manifests.Input{},
+		CreatedAt:       c.Now().UTC().Format(time.RFC3339),
+	}
+	m.Job.SHA256 = m.Job.Settings.Digest()
+	return m
+}
+
+func fileMeta(m *manifests.Manifest) string {
+	s, err := manifests.EncodeFileParams(m.FileParams())
+	if err != nil {
+		// Parameters are finite by construction (stats.Fit).
+		panic(err)
+	}
+	return s
+}
+
+// toolInfo describes this binary from its build information.
+func toolInfo(version string) manifests.Tool {
+	t := manifests.Tool{Name: "lakescale", Version: version, GoVersion: runtime.Version(), Dependencies: map[string]string{}}
+	bi, ok := debug.ReadBuildInfo()
+	if !ok {
+		return t
+	}
+	if t.Version == "" {
+		t.Version = bi.Main.Version
+	}
+	for _, s := range bi.Settings {
+		switch s.Key {
+		case "vcs.revision":
+			t.VCSRevision = s.Value
+		case "vcs.modified":
+			if s.Value == "true" && t.VCSRevision != "" {
+				t.VCSRevision += "+modified"
+			}
+		}
+	}
+	for _, d := range bi.Deps {
+		t.Dependencies[d.Path] = d.Version
+	}
+	return t
+}
+
+// Version reports the program version string for `lakescale version`.
+func Version(version string) string {
+	t := toolInfo(version)
+	s := fmt.Sprintf("lakescale %s", t.Version)
+	if t.VCSRevision != "" {
+		s += " (" + t.VCSRevision + ")"
+	}
+	return s + " " + t.GoVersion
+}
+
+// prepareOutput makes sure the output tree may be written: absent, empty,
+// an uncommitted earlier run, or (with Overwrite) a committed dataset.
+// It marks the tree uncommitted and removes leftover temporary files.
+func prepareOutput(cfg *Config) error {
+	names, exists, err := arrowio.ListDir(cfg.Output)
+	if err != nil {
+		return err
+	}
+	has := make(map[string]bool, len(names))
+	for _, n := range names {
+		has[n] = true
+	}
+	switch {
+	case !exists || len(names) == 0 || has[markerName]:
+	case has[ManifestName] && !cfg.Overwrite:
+		return fmt.Errorf("%w: %s holds a committed dataset (%s); give --overwrite to replace it", ErrOutputNotEmpty, cfg.Output, ManifestName)
+	case !has[ManifestName] && !cfg.Overwrite:
+		return fmt.Errorf("%w: %s holds files lakescale did not write; want an absent or empty directory, or --overwrite", ErrOutputNotEmpty, cfg.Output)
+	}
+	if err := arrowio.MkdirAll(cfg.Output); err != nil {
+		return err
+	}
+	// From here until commit the tree is uncommitted: first the marker,
+	// then drop the old manifest so the old dataset no longer claims to be
+	// complete.
+	marker := fmt.Sprintf("lakescale run started %s; this output is not committed until %s exists\n",
+		cfg.Now().UTC().Format(time.RFC3339), ManifestName)
+	if err := arrowio.WriteFileAtomic(filepath.Join(cfg.Output, markerName), func(w io.Writer) error {
+		_, err := io.WriteString(w, marker)
+		return err
+	}); err != nil {
+		return err
+	}
+	if err := arrowio.Remove(filepath.Join(cfg.Output, ManifestName)); err != nil {
+		return err
+	}
+	_, err = arrowio.RemoveTemps(cfg.Output)
+	return err
+}
+
+// commit checks every output, removes stale files of an earlier run,
+// writes the manifest last and removes the uncommitted marker.
+func commit(ctx context.Context, cfg *Config, p *plan, m *manifests.Manifest, outs []written) error {
+	want := make(map[string]bool, len(p.Files))
+	var rows int64
+	for i, f := range p.Files {
+		dst := filepath.Join(cfg.Output, filepath.FromSlash(f.Rel))
+		n, _, _, err := arrowio.ReadFooter(dst)
+		if err != nil {
+			return err
+		}
+		if n != outs[i].In.Rows {
+			return fmt.Errorf("check %s: %d rows, want %d", dst, n, outs[i].In.Rows)
+		}
+		want[f.Rel] = true
+		rows += n
+		m.Inputs = append(m.Inputs, input(f, outs[i].In))
+		m.Outputs = append(m.Outputs, manifests.Output{Path: f.Rel, Rows: outs[i].Out.Rows, Bytes: outs[i].Out.Bytes, SHA256: outs[i].Out.SHA256})
+	}
+	if err := context.Cause(ctx); err != nil {
+		return err
+	}
+	if existing, err := arrowio.Discover(cfg.Output); err == nil {
+		for _, f := range existing {
+			if !want[f.Rel] {
+				if err := arrowio.Remove(f.Abs); err != nil {
+					return err
+				}
+			}
+		}
+	}
+	sort.Slice(m.Outputs, func(i, j int) bool { return m.Outputs[i].Path < m.Outputs[j].Path })
+	manifestPath := filepath.Join(cfg.Output, ManifestName)
+	if err := writeManifest(manifestPath, m); err != nil {
+		return err
+	}
+	if err := arrowio.Remove(filepath.Join(cfg.Output, markerName)); err != nil {
+		return err
+	}
+	fmt.Fprintf(cfg.Out, "scaled %d columns in %d files (%d rows) into %s\nmanifest: %s\n",
+		len(m.Columns), len(m.Outputs), rows, cfg.Output, manifestPath)
+	return nil
+}
+
+func writeManifest(path string, m *manifests.Manifest) error {
+	return arrowio.WriteFileAtomic(path, func(w io.Writer) error { return manifests.Encode(w, m) })
+}
