@@ -6,7 +6,6 @@ import (
 	"fmt"
 	"io"
 	"math"
-	"os"
 	"path"
 	"path/filepath"
 	"runtime"
@@ -100,9 +99,9 @@ type fileRule struct {
 func Load(jobPath string, o Overrides) (Config, error) {
 	var jf jobFile
 	if jobPath != "" {
-		data, err := os.ReadFile(jobPath)
+		data, err := arrowio.ReadFile(jobPath)
 		if err != nil {
-			return Config{}, fmt.Errorf("read job file: %w", err)
+			return Config{}, err
 		}
 		md, err := toml.NewDecoder(bytes.NewReader(data)).Decode(&jf)
 		if err != nil {
