@@ -60,7 +60,8 @@ func WriteFileAtomic(path string, write func(io.Writer) error) error {
 
 // writeAtomic is the one atomic-write helper behind every output. It
 // returns the number of bytes written and their SHA-256, computed on the
-// way to the file. write's errors are returned as they are.
+// way to the file. write's errors are returned as they are, unless writing
+// to the file failed, in which case that failure is returned.
 func writeAtomic(path string, write func(io.Writer) error) (n int64, sum string, err error) {
 	dir, name := filepath.Split(path)
 	if dir == "" {
@@ -88,11 +89,14 @@ func writeAtomic(path string, write func(io.Writer) error) (n int64, sum string,
 
 	bw := bufio.NewWriterSize(f, writeBufferSize)
 	tw := newTeeWriter(bw)
-	if err := write(tw); err != nil {
-		return 0, "", err
-	}
+	err = write(tw)
+	// A failed write to the file is the root cause of whatever write then
+	// reports (the Parquet writer's own message does not say which file).
 	if tw.err != nil {
 		return 0, "", pathError("write", path, bareErr(tw.err))
+	}
+	if err != nil {
+		return 0, "", err
 	}
 	if err := bw.Flush(); err != nil {
 		return 0, "", pathError("write", path, bareErr(err))
