@@ -16,6 +16,10 @@ import (
 	"github.com/lakescale/lakescale/stats"
 )
 
+// hookFileWritten is called after each output file is in place; tests use
+// it to interrupt a run at a known point.
+var hookFileWritten = func(rel string) {}
+
 // written is what pass two learns about one file.
 type written struct {
 	In  fileResult // rows, bytes and hash of the input (Accs unused)
@@ -90,6 +94,7 @@ func scaleFile(ctx context.Context, cfg *Config, p *plan, i int, params []stats.
 	if err != nil {
 		return written{}, err
 	}
+	hookFileWritten(f.Rel)
 	res := written{In: fileResult{Rows: r.NumRows()}, Out: out}
 	if out.Rows != r.NumRows() {
 		return written{}, fmt.Errorf("%s: wrote %d rows, read %d", f.Rel, out.Rows, r.NumRows())
