@@ -17,6 +17,7 @@ const Version = 1
 const (
 	KindDataset    = "dataset"    // _manifest.json of a written dataset
 	KindStatistics = "statistics" // output of the measure command
+	KindInverted   = "inverted"   // _manifest.json of a dataset mapped back to original units
 )
 
 // ErrInvalid marks a document that cannot be decoded or fails validation.
@@ -61,6 +62,9 @@ type Settings struct {
 	OutputType  string       `json:"output_type"`
 	Compression string       `json:"compression"`
 	InfPolicy   string       `json:"inf_policy"`
+	// Fit is the canonical partition filter that chose the inputs whose
+	// statistics define the parameters; empty means every input.
+	Fit string `json:"fit,omitempty"`
 }
 
 // ColumnRule maps column-name glob patterns to a method.
@@ -73,7 +77,7 @@ type ColumnRule struct {
 	RangeMax *Float   `json:"range_max,omitempty"`
 }
 
-// ParamsSource records where frozen parameters came from (apply).
+// ParamsSource records where frozen parameters came from (apply, invert).
 type ParamsSource struct {
 	Path   string `json:"path"`
 	Kind   string `json:"kind"`
@@ -89,6 +93,16 @@ type Column struct {
 	Stats    Stats    `json:"stats"`
 	Params   Params   `json:"params"`
 	Warnings []string `json:"warnings"`
+	// OutOfRange counts the finite values scaled in this run that fell
+	// outside the fitted [stats.min, stats.max] (apply, and run with a fit
+	// filter); absent when not counted.
+	OutOfRange *OutOfRange `json:"out_of_range,omitempty"`
+}
+
+// OutOfRange counts values below the fitted min and above the fitted max.
+type OutOfRange struct {
+	Below uint64 `json:"below"`
+	Above uint64 `json:"above"`
 }
 
 // Options are a method's effective options.
@@ -128,6 +142,9 @@ type Input struct {
 	Rows      int64             `json:"rows"`
 	Bytes     int64             `json:"bytes"`
 	SHA256    string            `json:"sha256"`
+	// Fit says whether the input's statistics went into the parameters;
+	// present only when job.settings.fit is set.
+	Fit *bool `json:"fit,omitempty"`
 }
 
 // Output is one written file.
@@ -221,8 +238,8 @@ func (m *Manifest) Validate() error {
 	if m.ManifestVersion != Version {
 		return fmt.Errorf("%w: manifest_version %d, want %d", ErrInvalid, m.ManifestVersion, Version)
 	}
-	if m.Kind != KindDataset && m.Kind != KindStatistics {
-		return fmt.Errorf("%w: kind %q, want %q or %q", ErrInvalid, m.Kind, KindDataset, KindStatistics)
+	if m.Kind != KindDataset && m.Kind != KindStatistics && m.Kind != KindInverted {
+		return fmt.Errorf("%w: kind %q, want %q, %q or %q", ErrInvalid, m.Kind, KindDataset, KindStatistics, KindInverted)
 	}
 	seen := make(map[string]bool, len(m.Columns))
 	for i, c := range m.Columns {
