@@ -1,0 +1,132 @@
+package arrowio
+
+import (
+	"bytes"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io/fs"
+	"os"
+	"path/filepath"
+	"time"
+)
+
+// ErrLocked marks a lock file held by another run.
+var ErrLocked = errors.New("locked by another run")
+
+// LockHolder is what a lock file records about the process holding it.
+type LockHolder struct {
+	PID     int    `json:"pid"`
+	Host    string `json:"host"`
+	Started string `json:"started"` // RFC 3339, UTC
+}
+
+// Lock is a held lock file; Release gives it up.
+type Lock struct {
+	path    string
+	content []byte
+}
+
+// AcquireLock takes the lock file at path, creating it (and its folder)
+// with O_CREATE|O_EXCL so that of two processes only one can succeed. The
+// file records this process's pid, host name and start time.
+//
+// When path already exists and its holder is a process on this host that
+// no longer runs, the lock is stale: it is removed and taken, and the old
+// holder is returned. A holder on another host cannot be checked and so
+// is never taken over. Any other existing lock gives an error wrapping
+// ErrLocked that names the holder; it is returned at once, without
+// waiting. Two processes that find the same stale lock at the same moment
+// could in principle both take it: the take-over re-reads the file just
+// before removing it, which narrows but does not close that window.
+func AcquireLock(path string, now time.Time) (*Lock, *LockHolder, error) {
+	host, err := os.Hostname()
+	if err != nil {
+		return nil, nil, pathError("lock", path, fmt.Errorf("host name: %w", err))
+	}
+	me := LockHolder{PID: os.Getpid(), Host: host, Started: now.UTC().Format(time.RFC3339)}
+	content, err := json.Marshal(me)
+	if err != nil {
+		return nil, nil, pathError("lock", path, err)
+	}
+	content = append(content, '\n')
+	if err := os.MkdirAll(filepath.Dir(path), 0o755); err != nil {
+		return nil, nil, pathError("lock", path, unwrapPath(err))
+	}
+	var stale *LockHolder
+	for attempt := 0; ; attempt++ {
+		err := createExclusive(path, content)
+		if err == nil {
+			return &Lock{path: path, content: content}, stale, nil
+		}
+		if !errors.Is(err, fs.ErrExist) {
+			return nil, nil, pathError("lock", path, err)
+		}
+		old, err := os.ReadFile(path)
+		if errors.Is(err, fs.ErrNotExist) && attempt < 3 {
+			continue // released meanwhile
+		}
+		if err != nil {
+			return nil, nil, pathError("lock", path, unwrapPath(err))
+		}
+		var h LockHolder
+		if err := json.Unmarshal(old, &h); err != nil || h.PID <= 0 || h.Host == "" {
+			return nil, nil, pathError("lock", path, fmt.Errorf("%w: unreadable lock file (%q); remove it if no lakescale run is writing here", ErrLocked, bytes.TrimSpace(old)))
+		}
+		if h.Host != host || processAlive(h.PID) || attempt >= 3 {
+			return nil, nil, pathError("lock", path, fmt.Errorf("%w: held by pid %d on host %s since %s", ErrLocked, h.PID, h.Host, h.Started))
+		}
+		// Stale: remove it only if it is still the lock we judged.
+		if again, err := os.ReadFile(path); err != nil || !bytes.Equal(again, old) {
+			continue
+		}
+		if err := os.Remove(path); err != nil && !errors.Is(err, fs.ErrNotExist) {
+			return nil, nil, pathError("lock", path, unwrapPath(err))
+		}
+		stale = &h
+	}
+}
+
+// createExclusive creates path, failing with fs.ErrExist when it exists,
+// and writes and syncs content; on a write error the file is removed.
+func createExclusive(path string, content []byte) error {
+	f, err := os.OpenFile(path, os.O_WRONLY|os.O_CREATE|os.O_EXCL, outputMode)
+	if err != nil {
+		return unwrapPath(err)
+	}
+	_, err = f.Write(content)
+	if err == nil {
+		err = f.Sync()
+	}
+	if cerr := f.Close(); err == nil {
+		err = cerr
+	}
+	if err != nil {
+		os.Remove(path)
+		return unwrapPath(err)
+	}
+	return nil
+}
+
+// Path is the lock file's path.
+func (l *Lock) Path() string { return l.path }
+
+// Release removes the lock file if it still holds what AcquireLock wrote.
+// Calling it again does nothing.
+func (l *Lock) Release() error {
+	if l == nil || l.content == nil {
+		return nil
+	}
+	defer func() { l.content = nil }()
+	cur, err := os.ReadFile(l.path)
+	if errors.Is(err, fs.ErrNotExist) {
+		return nil
+	}
+	if err != nil {
+		return pathError("unlock", l.path, unwrapPath(err))
+	}
+	if !bytes.Equal(cur, l.content) {
+		return nil // not ours any more; leave it to its holder
+	}
+	return Remove(l.path)
+}

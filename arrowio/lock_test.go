@@ -1,0 +1,138 @@
+package arrowio
+
+import (
+	"encoding/json"
+	"errors"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"runtime"
+	"strconv"
+	"strings"
+	"testing"
+	"time"
+)
+
+var lockTime = time.Date(2026, 3, 1, 2, 0, 0, 0, time.UTC)
+
+func TestLockExclusive(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "out", "_lock")
+	l, stale, err := AcquireLock(path, lockTime)
+	if err != nil || stale != nil {
+		t.Fatalf("first acquire: %v, stale %v", err, stale)
+	}
+	var h LockHolder
+	data, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := json.Unmarshal(data, &h); err != nil {
+		t.Fatal(err)
+	}
+	host, _ := os.Hostname()
+	if h.PID != os.Getpid() || h.Host != host || h.Started != "2026-03-01T02:00:00Z" {
+		t.Fatalf("lock file holds %+v", h)
+	}
+	// This process is alive, so a second acquire fails at once.
+	_, _, err = AcquireLock(path, lockTime)
+	if !errors.Is(err, ErrLocked) {
+		t.Fatalf("second acquire: %v, want ErrLocked", err)
+	}
+	if !strings.Contains(err.Error(), path) || !strings.Contains(err.Error(), "pid") {
+		t.Fatalf("error %q does not name the lock file and holder", err)
+	}
+	if err := l.Release(); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := os.Stat(path); !os.IsNotExist(err) {
+		t.Fatalf("lock file still there after Release: %v", err)
+	}
+	if err := l.Release(); err != nil {
+		t.Fatalf("second Release: %v", err)
+	}
+	l, _, err = AcquireLock(path, lockTime)
+	if err != nil {
+		t.Fatalf("acquire after release: %v", err)
+	}
+	l.Release()
+}
+
+// deadPID returns the pid of a process that has exited.
+func deadPID(t *testing.T) int {
+	t.Helper()
+	cmd := exec.Command(os.Args[0], "-test.run=^$")
+	if err := cmd.Run(); err != nil {
+		t.Fatal(err)
+	}
+	return cmd.Process.Pid
+}
+
+func writeHolder(t *testing.T, path string, h LockHolder) {
+	t.Helper()
+	b, _ := json.Marshal(h)
+	if err := os.MkdirAll(filepath.Dir(path), 0o755); err != nil {
+		t.Fatal(err)
+	}
+	if err := os.WriteFile(path, b, 0o644); err != nil {
+		t.Fatal(err)
+	}
+}
+
+func TestLockStaleTakeover(t *testing.T) {
+	if runtime.GOOS == "windows" {
+		t.Skip("process liveness is not checked here")
+	}
+	path := filepath.Join(t.TempDir(), "_lock")
+	host, _ := os.Hostname()
+	pid := deadPID(t)
+	writeHolder(t, path, LockHolder{PID: pid, Host: host, Started: "2026-02-28T02:00:00Z"})
+	l, stale, err := AcquireLock(path, lockTime)
+	if err != nil {
+		t.Fatalf("stale lock of dead pid %d not taken over: %v", pid, err)
+	}
+	defer l.Release()
+	if stale == nil || stale.PID != pid {
+		t.Fatalf("stale holder %+v, want pid %d", stale, pid)
+	}
+}
+
+func TestLockNotTakenOver(t *testing.T) {
+	host, _ := os.Hostname()
+	for name, content := range map[string]string{
+		// Another host's process cannot be checked from here.
+		"other host": `{"pid":` + "12345" + `,"host":"` + host + `-elsewhere","started":"2026-02-28T02:00:00Z"}`,
+		// This test process is alive.
+		"live process": `{"pid":` + strconv.Itoa(os.Getpid()) + `,"host":"` + host + `","started":"2026-02-28T02:00:00Z"}`,
+		"unreadable":   "",
+	} {
+		t.Run(name, func(t *testing.T) {
+			path := filepath.Join(t.TempDir(), "_lock")
+			if err := os.WriteFile(path, []byte(content), 0o644); err != nil {
+				t.Fatal(err)
+			}
+			_, _, err := AcquireLock(path, lockTime)
+			if !errors.Is(err, ErrLocked) {
+				t.Fatalf("got %v, want ErrLocked", err)
+			}
+			if got, _ := os.ReadFile(path); string(got) != content {
+				t.Fatalf("lock file changed to %q", got)
+			}
+		})
+	}
+}
+
+// Release leaves a lock that is no longer its own.
+func TestLockReleaseKeepsOthers(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "_lock")
+	l, _, err := AcquireLock(path, lockTime)
+	if err != nil {
+		t.Fatal(err)
+	}
+	writeHolder(t, path, LockHolder{PID: 1, Host: "elsewhere", Started: "2026-03-01T03:00:00Z"})
+	if err := l.Release(); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := os.Stat(path); err != nil {
+		t.Fatalf("another holder's lock was removed: %v", err)
+	}
+}
