@@ -269,11 +269,11 @@ func (c *Config) checkPaths(needOutput bool) error {
 	if c.Output == "" {
 		return fmt.Errorf("%w: no output: give --output or output in the job file", ErrUsage)
 	}
-	in, err := filepath.Abs(c.Input)
+	in, err := arrowio.ResolvePath(c.Input)
 	if err != nil {
 		return err
 	}
-	out, err := filepath.Abs(c.Output)
+	out, err := arrowio.ResolvePath(c.Output)
 	if err != nil {
 		return err
 	}

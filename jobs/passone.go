@@ -65,6 +65,9 @@ func measureFile(ctx context.Context, cfg *Config, p *plan, i int) (fileResult, 
 	if err != nil {
 		return fileResult{}, err
 	}
+	if err := p.checkSelection(r.Schema(), f.Rel); err != nil {
+		return fileResult{}, err
+	}
 	accs := make([]*stats.Accumulator, len(p.Columns))
 	for j, c := range p.Columns {
 		accs[j] = stats.NewAccumulator(c.Kind)

@@ -24,6 +24,7 @@ type column struct {
 type plan struct {
 	Files   []arrowio.File
 	Columns []column
+	Rules   []Rule // the rules Columns came from; nil when they came from a parameters file
 }
 
 // partitionName is the Hive partition of a file as "k=v/k=v", or its path.
@@ -54,7 +55,7 @@ func discover(input string, rules []Rule) (*plan, error) {
 	if err != nil {
 		return nil, fmt.Errorf("%s: %w", files[0].Rel, err)
 	}
-	return &plan{Files: files, Columns: cols}, nil
+	return &plan{Files: files, Columns: cols, Rules: rules}, nil
 }
 
 // hasMeta reports whether a pattern is a glob rather than a plain name.
@@ -114,6 +115,29 @@ func fieldList(sc *arrow.Schema) string {
 		names[i] = f.Name + " " + f.Type.String()
 	}
 	return strings.Join(names, ", ")
+}
+
+// checkSelection applies the rules to another file's schema and fails if
+// they select a column the first file's schema did not give, so that drift
+// is found whichever file sorts first.
+func (p *plan) checkSelection(sc *arrow.Schema, this string) error {
+	if p.Rules == nil {
+		return nil
+	}
+	cols, err := selectColumns(sc, p.Rules)
+	if err != nil {
+		return err
+	}
+	first := make(map[string]bool, len(p.Columns))
+	for _, c := range p.Columns {
+		first[c.Name] = true
+	}
+	for _, c := range cols {
+		if !first[c.Name] {
+			return fmt.Errorf("%w: column %s is in %s but missing from %s", ErrSchemaMismatch, c.Name, this, p.Files[0].Rel)
+		}
+	}
+	return nil
 }
 
 // columnIndices finds the selected columns in a file's schema and checks
