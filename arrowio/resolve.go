@@ -1,0 +1,33 @@
+package arrowio
+
+import (
+	"errors"
+	"fmt"
+	"io/fs"
+	"path/filepath"
+)
+
+// ResolvePath returns the absolute path of p with symbolic links resolved.
+// For a path that does not exist yet, the nearest existing ancestor is
+// resolved and the missing tail joined back on, so that an output about to
+// be created can be compared with an input.
+func ResolvePath(p string) (string, error) {
+	abs, err := filepath.Abs(p)
+	if err != nil {
+		return "", fmt.Errorf("resolve %s: %w", p, err)
+	}
+	tail := ""
+	for dir := abs; ; dir = filepath.Dir(dir) {
+		real, err := filepath.EvalSymlinks(dir)
+		if err == nil {
+			return filepath.Join(real, tail), nil
+		}
+		if !errors.Is(err, fs.ErrNotExist) {
+			return "", fmt.Errorf("resolve %s: %w", p, unwrapPath(err))
+		}
+		if parent := filepath.Dir(dir); parent == dir {
+			return abs, nil
+		}
+		tail = filepath.Join(filepath.Base(dir), tail)
+	}
+}
