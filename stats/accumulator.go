@@ -167,9 +167,9 @@ func (a *Accumulator) Add(arr arrow.Array) error {
 	}
 	switch arr := arr.(type) {
 	case *array.Float64:
-		eachValidRun(arr.Float64Values(), bm, off, a.addFloat64s)
+		addFloats(a, arr.Float64Values(), bm, off)
 	case *array.Float32:
-		eachValidRun(arr.Float32Values(), bm, off, a.addFloat32s)
+		addFloats(a, arr.Float32Values(), bm, off)
 	case *array.Int8:
 		eachValidRun(arr.Int8Values(), bm, off, func(v []int8) { addSigned(a, v) })
 	case *array.Int16:

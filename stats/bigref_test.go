@@ -10,6 +10,7 @@ package stats
 // the neighbouring float64 midpoints exactly.
 
 import (
+	"bytes"
 	"math"
 	"math/big"
 	"math/rand/v2"
@@ -406,5 +407,66 @@ func TestBruteForceInt(t *testing.T) {
 		}
 		arr.Release()
 		accCheckSummary(t, c.name, a.Summary(), want)
+	}
+}
+
+// TestFloatLoops: the two float loops (and the adaptive switch between
+// them) build byte-identical states, equal to the reference's statistics,
+// on the adversarial sets and on a column built to switch loops often:
+// long runs (past the 1024-value chunk), exponent changes at every value,
+// zeros and subnormals, NaN, infinities and nulls.
+func TestFloatLoops(t *testing.T) {
+	mem := memory.NewCheckedAllocator(memory.NewGoAllocator())
+	defer mem.AssertSize(t, 0)
+	defer func() { floatLoop = loopAdaptive }()
+	rng := rand.New(rand.NewPCG(83, 89))
+	var vals []float64
+	var valid []bool
+	for len(vals) < 15000 {
+		n := 1 + rng.IntN(3000)
+		kind := rng.IntN(5)
+		for range n {
+			var x float64
+			switch kind {
+			case 0: // one exponent
+				x = 1 + rng.Float64()
+			case 1: // exponent changes almost every value
+				x = rng.NormFloat64() * math.Ldexp(1, rng.IntN(40)-20)
+			case 2: // zeros and subnormals of both signs
+				x = math.Float64frombits(rng.Uint64()&(1<<52-1)) * float64(1-2*rng.IntN(2))
+				if rng.IntN(4) == 0 {
+					x = math.Copysign(0, float64(1-2*rng.IntN(2)))
+				}
+			case 3: // specials among ordinary values
+				x = []float64{math.NaN(), math.Inf(1), math.Inf(-1), 3, -3}[rng.IntN(5)]
+			default: // negative values in one exponent
+				x = -(1 + rng.Float64())
+			}
+			vals = append(vals, x)
+			valid = append(valid, rng.IntN(20) != 0)
+		}
+	}
+	sets := []accAdversarial{{name: "loop switching", vals: vals, valid: valid}, {name: "loop switching, no nulls", vals: vals}}
+	for _, c := range accAdversarialFloats() {
+		if len(c.vals) < 1<<20 {
+			sets = append(sets, c)
+		}
+	}
+	for _, c := range sets {
+		var enc [3][]byte
+		for i, mode := range []int{loopAdaptive, loopRuns, loopDirect} {
+			floatLoop = mode
+			a := accFeedFloat64(t, mem, c.vals, c.valid)
+			var err error
+			if enc[i], err = a.MarshalBinary(); err != nil {
+				t.Fatal(err)
+			}
+			if i == 0 {
+				accCheckSummary(t, c.name, a.Summary(), refFloats(c.vals, c.valid))
+			}
+		}
+		if !bytes.Equal(enc[0], enc[1]) || !bytes.Equal(enc[0], enc[2]) {
+			t.Errorf("%s: adaptive, runs-only and direct-only states differ", c.name)
+		}
 	}
 }
