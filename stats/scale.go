@@ -22,18 +22,18 @@ const (
 	Identity Method = "none"     // x unchanged
 )
 
-// methods lists every method in the order error messages show them.
-var methods = []Method{ZScore, MinMax, MeanNorm, MaxAbs, Identity}
+// scaleMethods lists every method in the order error messages show them.
+var scaleMethods = []Method{ZScore, MinMax, MeanNorm, MaxAbs, Identity}
 
 // ParseMethod validates a method name.
 func ParseMethod(s string) (Method, error) {
-	for _, m := range methods {
+	for _, m := range scaleMethods {
 		if s == string(m) {
 			return m, nil
 		}
 	}
-	names := make([]string, len(methods))
-	for i, m := range methods {
+	names := make([]string, len(scaleMethods))
+	for i, m := range scaleMethods {
 		names[i] = string(m)
 	}
 	return "", fmt.Errorf("unknown scaling method %q (valid: %s)", s, strings.Join(names, ", "))
@@ -78,7 +78,7 @@ func (o Options) normalize(m Method) (Options, error) {
 	if lo == 0 && hi == 0 {
 		lo, hi = 0, 1
 	}
-	if !isFinite(lo) || !isFinite(hi) || !(lo < hi) {
+	if !scaleFinite(lo) || !scaleFinite(hi) || !(lo < hi) {
 		return Options{}, fmt.Errorf("invalid minmax range [%v, %v]: need finite bounds with min < max", o.RangeMin, o.RangeMax)
 	}
 	switch m {
@@ -140,10 +140,10 @@ func (p Params) Validate() error {
 	if _, err := p.Options.normalize(p.Method); err != nil {
 		return err
 	}
-	if !isFinite(p.Center) {
+	if !scaleFinite(p.Center) {
 		return fmt.Errorf("invalid %s parameters: center %v is not finite", p.Method, p.Center)
 	}
-	if !isFinite(p.Scale) || !(p.Scale > 0) {
+	if !scaleFinite(p.Scale) || !(p.Scale > 0) {
 		return fmt.Errorf("invalid %s parameters: scale %v is not finite and positive", p.Method, p.Scale)
 	}
 	return nil
@@ -197,7 +197,7 @@ func Fit(m Method, o Options, s Summary) (Params, []Warning, error) {
 	if s.Count == 0 {
 		return p, []Warning{WarnNoFiniteValues}, nil
 	}
-	if err := checkSummary(m, opts, s); err != nil {
+	if err := fitSummaryCheck(m, opts, s); err != nil {
 		return Params{}, nil, fmt.Errorf("%s: %w", m, err)
 	}
 
@@ -225,8 +225,8 @@ func Fit(m Method, o Options, s Summary) (Params, []Warning, error) {
 			warn = WarnConstantColumn
 		} else {
 			// (max - min) / (b - a), exact, rounded once.
-			num := new(big.Rat).Sub(rat(s.Max), rat(s.Min))
-			den := new(big.Rat).Sub(rat(b), rat(a))
+			num := new(big.Rat).Sub(exactRat(s.Max), exactRat(s.Min))
+			den := new(big.Rat).Sub(exactRat(b), exactRat(a))
 			p.Scale, _ = num.Quo(num, den).Float64()
 			if math.IsInf(p.Scale, 0) {
 				return Params{}, nil, fmt.Errorf("%s: %w: scale (max - min) / (b - a) is %v for min %v, max %v, range [%v, %v]",
@@ -238,8 +238,8 @@ func Fit(m Method, o Options, s Summary) (Params, []Warning, error) {
 		}
 		// min - a*scale with the rounded scale, so that the affine map
 		// actually applied sends min to a; exact, rounded once.
-		c := new(big.Rat).Mul(rat(a), rat(p.Scale))
-		p.Center, _ = c.Sub(rat(s.Min), c).Float64()
+		c := new(big.Rat).Mul(exactRat(a), exactRat(p.Scale))
+		p.Center, _ = c.Sub(exactRat(s.Min), c).Float64()
 		if math.IsInf(p.Center, 0) {
 			return Params{}, nil, fmt.Errorf("%s: %w: center min - a*scale is %v for min %v, a %v, scale %v",
 				m, ErrParamOverflow, p.Center, s.Min, a, p.Scale)
@@ -264,7 +264,7 @@ func Fit(m Method, o Options, s Summary) (Params, []Warning, error) {
 		}
 	}
 	p.Center += 0 // -0 + 0 == +0: one canonical zero for manifests
-	if err := checkRange(p, s); err != nil {
+	if err := fitRangeCheck(p, s); err != nil {
 		return Params{}, nil, err
 	}
 	if warn != "" {
@@ -273,13 +273,13 @@ func Fit(m Method, o Options, s Summary) (Params, []Warning, error) {
 	return p, nil, nil
 }
 
-// checkSummary rejects a summary whose statistics cannot come from Count > 0
+// fitSummaryCheck rejects a summary whose statistics cannot come from Count > 0
 // finite values. It checks only the fields method m reads.
-func checkSummary(m Method, o Options, s Summary) error {
-	if !isFinite(s.Min) || !isFinite(s.Max) || s.Min > s.Max {
+func fitSummaryCheck(m Method, o Options, s Summary) error {
+	if !scaleFinite(s.Min) || !scaleFinite(s.Max) || s.Min > s.Max {
 		return fmt.Errorf("invalid summary: min %v, max %v over %d finite values", s.Min, s.Max, s.Count)
 	}
-	if (m == ZScore || m == MeanNorm) && !isFinite(s.Mean) {
+	if (m == ZScore || m == MeanNorm) && !scaleFinite(s.Mean) {
 		return fmt.Errorf("invalid summary: mean %v over %d finite values", s.Mean, s.Count)
 	}
 	if m == ZScore {
@@ -290,20 +290,20 @@ func checkSummary(m Method, o Options, s Summary) error {
 			}
 			std = s.StdSample
 		}
-		if !isFinite(std) || std < 0 {
+		if !scaleFinite(std) || std < 0 {
 			return fmt.Errorf("invalid summary: %s std %v over %d finite values", o.Std, std, s.Count)
 		}
 	}
 	return nil
 }
 
-// checkRange makes sure Forward maps min and max (and so, being monotone,
+// fitRangeCheck makes sure Forward maps min and max (and so, being monotone,
 // every finite value of the column) to finite values, and that Inverse
 // maps those back to finite values.
-func checkRange(p Params, s Summary) error {
+func fitRangeCheck(p Params, s Summary) error {
 	for _, x := range [2]float64{s.Min, s.Max} {
 		y := p.Forward(x)
-		if !isFinite(x-p.Center) || !isFinite(y) || !isFinite(p.Inverse(y)) {
+		if !scaleFinite(x-p.Center) || !scaleFinite(y) || !scaleFinite(p.Inverse(y)) {
 			return fmt.Errorf("%s: %w: value %v maps outside the float64 range with center %v, scale %v",
 				p.Method, ErrParamOverflow, x, p.Center, p.Scale)
 		}
@@ -313,7 +313,13 @@ func checkRange(p Params, s Summary) error {
 
 // Forward scales one value: (x - Center) / Scale. A subtraction and a
 // division cannot be fused into one operation, so the result has the same
-// bits on every platform. NaN stays NaN; ±Inf map through the formula.
+// bits on every platform. NaN stays NaN; ±Inf map through the formula;
+// x == Center gives +0.
+//
+// Pass x as a rounded float64 (a variable, a loaded value or an explicit
+// float64(...) conversion): once Forward is inlined, the Go specification
+// allows an argument written as a product, Forward(a*b), to be fused with
+// the subtraction.
 func (p Params) Forward(x float64) float64 { return (x - p.Center) / p.Scale }
 
 // Inverse maps a scaled value back to original units: y*Scale + Center.
@@ -323,7 +329,8 @@ func (p Params) Forward(x float64) float64 { return (x - p.Center) / p.Scale }
 // rounding, which the compiler does for GOARCH=arm64 and for amd64 with
 // GOAMD64=v3, but an explicit conversion to a floating-point type forces the
 // product to be rounded first. The conversion below is what keeps Inverse
-// bit-identical across CPUs; do not remove it.
+// bit-identical across CPUs; do not remove it. As for Forward, pass y (and
+// build Params) from rounded values, not from unconverted products.
 func (p Params) Inverse(y float64) float64 { return float64(y*p.Scale) + p.Center }
 
 // Transform scales a numeric array into a new float64 array (float32 when
@@ -336,10 +343,10 @@ func (p Params) Inverse(y float64) float64 { return float64(y*p.Scale) + p.Cente
 // slice (non-zero offset). Supported types: int8 to int64, uint8 to uint64,
 // float32 and float64; any other type is an error wrapping arrow.ErrType.
 func Transform(mem memory.Allocator, arr arrow.Array, p Params, asFloat32 bool) (arrow.Array, error) {
-	return transform(mem, arr, p, asFloat32)
+	return tfTransform(mem, arr, p, asFloat32)
 }
 
-func isFinite(x float64) bool { return !math.IsInf(x, 0) && !math.IsNaN(x) }
+func scaleFinite(x float64) bool { return !math.IsInf(x, 0) && !math.IsNaN(x) }
 
-// rat returns the exact value of a finite float64.
-func rat(x float64) *big.Rat { return new(big.Rat).SetFloat64(x) }
+// exactRat returns the exact value of a finite float64.
+func exactRat(x float64) *big.Rat { return new(big.Rat).SetFloat64(x) }
