@@ -25,6 +25,7 @@ type LockHolder struct {
 type Lock struct {
 	path    string
 	content []byte
+	created string // topmost folder AcquireLock created for the lock, or ""
 }
 
 // AcquireLock takes the lock file at path, creating it (and its folder)
@@ -50,6 +51,13 @@ func AcquireLock(path string, now time.Time) (*Lock, *LockHolder, error) {
 		return nil, nil, pathError("lock", path, err)
 	}
 	content = append(content, '\n')
+	created := ""
+	for d := filepath.Dir(path); ; d = filepath.Dir(d) {
+		if _, err := os.Lstat(d); err == nil || filepath.Dir(d) == d {
+			break
+		}
+		created = d
+	}
 	if err := os.MkdirAll(filepath.Dir(path), 0o755); err != nil {
 		return nil, nil, pathError("lock", path, unwrapPath(err))
 	}
@@ -57,7 +65,7 @@ func AcquireLock(path string, now time.Time) (*Lock, *LockHolder, error) {
 	for attempt := 0; ; attempt++ {
 		err := createExclusive(path, content)
 		if err == nil {
-			return &Lock{path: path, content: content}, stale, nil
+			return &Lock{path: path, content: content, created: created}, stale, nil
 		}
 		if !errors.Is(err, fs.ErrExist) {
 			return nil, nil, pathError("lock", path, err)
@@ -111,8 +119,10 @@ func createExclusive(path string, content []byte) error {
 // Path is the lock file's path.
 func (l *Lock) Path() string { return l.path }
 
-// Release removes the lock file if it still holds what AcquireLock wrote.
-// Calling it again does nothing.
+// Release removes the lock file if it still holds what AcquireLock wrote,
+// and then the folders AcquireLock created for it if they are empty, so
+// that a run that failed before writing anything leaves no trace. Calling
+// it again does nothing.
 func (l *Lock) Release() error {
 	if l == nil || l.content == nil {
 		return nil
@@ -128,5 +138,14 @@ func (l *Lock) Release() error {
 	if !bytes.Equal(cur, l.content) {
 		return nil // not ours any more; leave it to its holder
 	}
-	return Remove(l.path)
+	if err := Remove(l.path); err != nil {
+		return err
+	}
+	if l.created != "" {
+		// os.Remove fails on a folder that is not empty, which ends the climb.
+		for d := filepath.Dir(l.path); os.Remove(d) == nil && d != l.created; {
+			d = filepath.Dir(d)
+		}
+	}
+	return nil
 }

@@ -136,3 +136,44 @@ func TestLockReleaseKeepsOthers(t *testing.T) {
 		t.Fatalf("another holder's lock was removed: %v", err)
 	}
 }
+
+// A lock whose folders did not exist leaves none behind once released,
+// unless something else was written there meanwhile.
+func TestLockRemovesCreatedFolders(t *testing.T) {
+	root := t.TempDir()
+	path := filepath.Join(root, "a", "b", "_lock")
+	l, _, err := AcquireLock(path, lockTime)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := l.Release(); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := os.Stat(filepath.Join(root, "a")); !os.IsNotExist(err) {
+		t.Fatalf("created folder left behind: %v", err)
+	}
+
+	l, _, err = AcquireLock(path, lockTime)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := os.WriteFile(filepath.Join(root, "a", "b", "data"), nil, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	if err := l.Release(); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := os.Stat(filepath.Join(root, "a", "b", "data")); err != nil {
+		t.Fatalf("folder with data removed: %v", err)
+	}
+
+	// An existing folder is never removed, even when empty.
+	l, _, err = AcquireLock(filepath.Join(root, "_lock"), lockTime)
+	if err != nil {
+		t.Fatal(err)
+	}
+	l.Release()
+	if _, err := os.Stat(root); err != nil {
+		t.Fatalf("existing folder removed: %v", err)
+	}
+}
