@@ -9,6 +9,9 @@ import (
 	"strings"
 	"testing"
 
+	"github.com/apache/arrow/go/v17/arrow"
+	"github.com/apache/arrow/go/v17/arrow/array"
+	"github.com/apache/arrow/go/v17/arrow/memory"
 	"gonum.org/v1/gonum/stat"
 
 	"github.com/lakescale/lakescale/stats"
@@ -684,4 +687,109 @@ func TestInverseNotFused(t *testing.T) {
 	if found < 200 {
 		t.Fatalf("only %d inputs where fusing differs", found)
 	}
+}
+
+// TestFitFromAccumulator runs pass one and pass two back to back: arrays
+// through the Accumulator, Fit on its Summary, then Transform.
+func TestFitFromAccumulator(t *testing.T) {
+	mem := memory.NewCheckedAllocator(memory.NewGoAllocator())
+	defer mem.AssertSize(t, 0)
+
+	run := func(arr arrow.Array, m stats.Method, o stats.Options) []float64 {
+		t.Helper()
+		defer arr.Release()
+		k, ok := stats.KindOf(arr.DataType())
+		if !ok {
+			t.Fatalf("KindOf(%s) not supported", arr.DataType())
+		}
+		acc := stats.NewAccumulator(k)
+		if err := acc.Add(arr); err != nil {
+			t.Fatal(err)
+		}
+		p, w, err := stats.Fit(m, o, acc.Summary())
+		if err != nil || len(w) != 0 {
+			t.Fatalf("Fit(%s): %+v %v %v", m, p, w, err)
+		}
+		out, err := stats.Transform(mem, arr, p, false)
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer out.Release()
+		return append([]float64(nil), out.(*array.Float64).Float64Values()...)
+	}
+
+	fromJSON := func(dt arrow.DataType, json string) arrow.Array {
+		t.Helper()
+		arr, _, err := array.FromJSON(mem, dt, strings.NewReader(json))
+		if err != nil {
+			t.Fatal(err)
+		}
+		return arr
+	}
+
+	// NIST StRD NumAcc1: certified mean 10000002 and sample std 1, exact.
+	numAcc1 := `[10000001, 10000003, 10000002]`
+	got := run(fromJSON(arrow.PrimitiveTypes.Float64, numAcc1), stats.ZScore, stats.Options{Std: stats.StdSample})
+	if want := []float64{-1, 1, 0}; !slices.Equal(got, want) {
+		t.Errorf("NumAcc1 sample zscore = %v, want %v", got, want)
+	}
+	got = run(fromJSON(arrow.PrimitiveTypes.Float64, numAcc1), stats.MinMax, stats.Options{})
+	if want := []float64{0, 1, 0.5}; !slices.Equal(got, want) {
+		t.Errorf("NumAcc1 minmax = %v, want %v", got, want)
+	}
+	// int64 extremes: min -2^63, max 2^63 - 1 (rounds to 2^63 in float64
+	// both in the Summary and in Transform's conversion), so scale 2^64,
+	// center -2^63; 0 maps to 1/2 and 2^60 to 1/2 + 1/16 (hand-derived).
+	// Built with a builder: FromJSON reads numbers through float64.
+	b := array.NewInt64Builder(mem)
+	b.AppendValues([]int64{math.MinInt64, math.MaxInt64, 0, 1 << 60}, nil)
+	b.AppendNull()
+	ints := b.NewArray()
+	b.Release()
+	got = run(ints, stats.MinMax, stats.Options{})
+	if want := []float64{0, 1, 0.5, 0.5625}; !slices.Equal(got[:4], want) {
+		t.Errorf("int64 minmax = %v, want %v", got[:4], want)
+	}
+}
+
+// FuzzFit checks Fit's contract on arbitrary summaries: either an error,
+// or parameters that pass Validate and map the column's min and max to
+// finite values and back to finite values; a warning only with its
+// documented fallback scale of 1.
+func FuzzFit(f *testing.F) {
+	f.Add(uint8(0), uint64(8), 5.0, 2.0, 2.0, 9.0, 0.0, 0.0)
+	f.Add(uint8(1), uint64(2), 0.0, 1e308, -1e308, 1e308, -1.0, 1.0)
+	f.Add(uint8(2), uint64(1), 3.0, 0.0, 3.0, 3.0, 0.0, 0.0)
+	f.Add(uint8(3), uint64(3), 0.0, 0.0, 0.0, 0.0, 0.0, 0.0)
+	f.Add(uint8(1), uint64(2), 2.5e-324, 2.5e-324, 0.0, 5e-324, 0.0, 0x1p60)
+	f.Fuzz(func(t *testing.T, mi uint8, n uint64, mean, std, lo, hi, a, b float64) {
+		methods := []stats.Method{stats.ZScore, stats.MinMax, stats.MeanNorm, stats.MaxAbs, stats.Identity}
+		m := methods[int(mi)%len(methods)]
+		o := stats.Options{RangeMin: a, RangeMax: b}
+		if mi&8 != 0 {
+			o.Std = stats.StdSample
+		}
+		s := stats.Summary{Rows: n, Count: n, Mean: mean, StdPopulation: std, StdSample: std, Min: lo, Max: hi}
+		p, w, err := stats.Fit(m, o, s)
+		if err != nil {
+			if len(w) != 0 || p != (stats.Params{}) {
+				t.Fatalf("error %v with params %+v and warnings %v", err, p, w)
+			}
+			return
+		}
+		if err := p.Validate(); err != nil {
+			t.Fatalf("Fit(%s, %+v, %+v) = %+v: %v", m, o, s, p, err)
+		}
+		if len(w) > 1 || (len(w) == 1 && p.Scale != 1) {
+			t.Fatalf("warnings %v with scale %v", w, p.Scale)
+		}
+		if n == 0 || m == stats.Identity {
+			return
+		}
+		for _, x := range []float64{lo, hi} {
+			if y := p.Forward(x); !isFin(y) || !isFin(p.Inverse(y)) {
+				t.Fatalf("Fit(%s, %+v, %+v) = %+v: %v -> %v -> %v", m, o, s, p, x, y, p.Inverse(y))
+			}
+		}
+	})
 }
