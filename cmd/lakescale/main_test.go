@@ -47,7 +47,7 @@ var nistDir = func() string {
 //	cmp-tree A B
 //	corrupt FILE truncate|garbage|append|flip
 //	exitcode N PROG [ARGS...]
-//	interrupt INT|KILL WANT DIR PROG [ARGS...]
+//	interrupt INT|TERM|KILL WANT DIR PROG [ARGS...]
 //	no-temps DIR
 func TestScripts(t *testing.T) {
 	testscript.Run(t, testscript.Params{

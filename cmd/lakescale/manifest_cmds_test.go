@@ -144,7 +144,8 @@ func matchJSON(v any, want string) (bool, string, error) {
 }
 
 // cmdManifestField asserts one value of a JSON file (see lookup and
-// matchJSON). With !, the value must be absent or different.
+// matchJSON); WANT "=PATH2" compares with another value of the same file.
+// With !, the value must be absent or different.
 //
 //	manifest-field FILE PATH WANT
 func cmdManifestField(ts *testscript.TestScript, neg bool, args []string) {
@@ -160,7 +161,16 @@ func cmdManifestField(ts *testscript.TestScript, neg bool, args []string) {
 		}
 		ts.Fatalf("%s: %v", args[0], err)
 	}
-	ok, got, err := matchJSON(v, args[2])
+	want := args[2]
+	if other, ok := strings.CutPrefix(want, "="); ok {
+		// Another value of the same document, compared the same way.
+		w, err := lookup(doc, other)
+		ts.Check(err)
+		b, err := json.Marshal(w)
+		ts.Check(err)
+		want = strings.Trim(string(b), `"`)
+	}
+	ok, got, err := matchJSON(v, want)
 	ts.Check(err)
 	if ok == neg {
 		ts.Fatalf("%s: %s is %s, want %s%s", args[0], args[1], got, map[bool]string{true: "anything but "}[neg], args[2])

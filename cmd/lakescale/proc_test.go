@@ -8,6 +8,7 @@ import (
 	"path/filepath"
 	"strconv"
 	"strings"
+	"syscall"
 	"time"
 
 	"github.com/rogpeppe/go-internal/testscript"
@@ -57,16 +58,18 @@ func committedParquet(dir string) int {
 // status, or "killed" for death by the signal. The program's stdout and
 // stderr are kept for the stdout and stderr commands.
 //
-//	interrupt INT|KILL WANT DIR PROG [ARGS...]
+//	interrupt INT|TERM|KILL WANT DIR PROG [ARGS...]
 func cmdInterrupt(ts *testscript.TestScript, neg bool, args []string) {
 	noNeg(ts, neg, "interrupt")
 	if len(args) < 4 {
-		ts.Fatalf("usage: interrupt INT|KILL WANT DIR PROG [ARGS...]")
+		ts.Fatalf("usage: interrupt INT|TERM|KILL WANT DIR PROG [ARGS...]")
 	}
 	var sig os.Signal
 	switch args[0] {
 	case "INT":
 		sig = os.Interrupt
+	case "TERM":
+		sig = syscall.SIGTERM
 	case "KILL":
 		sig = os.Kill
 	default:
