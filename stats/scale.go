@@ -79,7 +79,7 @@ func (o Options) normalize(m Method) (Options, error) {
 		lo, hi = 0, 1
 	}
 	if !scaleFinite(lo) || !scaleFinite(hi) || !(lo < hi) {
-		return Options{}, fmt.Errorf("invalid minmax range [%v, %v]: need finite bounds with min < max", o.RangeMin, o.RangeMax)
+		return Options{}, fmt.Errorf("invalid target range [%v, %v]: need finite bounds with min < max", o.RangeMin, o.RangeMax)
 	}
 	switch m {
 	case ZScore:

@@ -248,11 +248,11 @@ func TestFitRejectsBadInput(t *testing.T) {
 		want string
 	}{
 		{"unknown method", "robust", stats.Options{}, s, "unknown scaling method"},
-		{"empty range", stats.MinMax, stats.Options{RangeMin: 1, RangeMax: 1}, s, "invalid minmax range"},
-		{"reversed range", stats.MinMax, stats.Options{RangeMin: 1, RangeMax: 0}, s, "invalid minmax range"},
-		{"nan range", stats.MinMax, stats.Options{RangeMin: nan, RangeMax: 1}, s, "invalid minmax range"},
-		{"inf range", stats.MinMax, stats.Options{RangeMin: 0, RangeMax: inf}, s, "invalid minmax range"},
-		{"range checked for other methods", stats.ZScore, stats.Options{RangeMin: 2, RangeMax: -2}, s, "invalid minmax range"},
+		{"empty range", stats.MinMax, stats.Options{RangeMin: 1, RangeMax: 1}, s, "invalid target range"},
+		{"reversed range", stats.MinMax, stats.Options{RangeMin: 1, RangeMax: 0}, s, "invalid target range"},
+		{"nan range", stats.MinMax, stats.Options{RangeMin: nan, RangeMax: 1}, s, "invalid target range"},
+		{"inf range", stats.MinMax, stats.Options{RangeMin: 0, RangeMax: inf}, s, "invalid target range"},
+		{"range checked for other methods", stats.ZScore, stats.Options{RangeMin: 2, RangeMax: -2}, s, "invalid target range"},
 		{"bad std", stats.ZScore, stats.Options{Std: "n-1"}, s, "unknown standard deviation kind"},
 		{"bad std for other methods", stats.MinMax, stats.Options{Std: "pop"}, s, "unknown standard deviation kind"},
 		{"nan min", stats.MinMax, stats.Options{}, stats.Summary{Count: 2, Min: nan, Max: 1}, "invalid summary"},
