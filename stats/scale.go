@@ -180,8 +180,9 @@ func (p Params) Validate() error {
 // Fit fails with an error wrapping ErrParamOverflow when a parameter would
 // be infinite or when Min or Max would map to an infinite y, or back to an
 // infinite x, so that every finite input of the column maps to a finite
-// output. Center is never -0. Options fills its defaults into
-// Params.Options and keeps only the options the method uses.
+// output. Center is never -0. Params.Options records o with its defaults
+// filled in, keeping only the options the method uses (all of o is
+// validated).
 func Fit(m Method, o Options, s Summary) (Params, []Warning, error) {
 	if _, err := ParseMethod(string(m)); err != nil {
 		return Params{}, nil, err
