@@ -55,13 +55,20 @@ type Config struct {
 	InfPolicy   InfPolicy
 	Overwrite   bool
 	BatchRows   int64
+	Fit         FitFilter // inputs whose statistics define the parameters (all when empty)
 
 	StatsPath  string // measure: where the statistics file goes
-	ParamsPath string // apply: manifest or statistics file to take parameters from
+	ParamsPath string // apply, invert: manifest or statistics file to take parameters from
+
+	CacheDir    string // statistics cache; "" means OUTPUT/_cache for run and none for measure
+	NoCache     bool   // measure every file (the cache is rewritten, never read)
+	LogFormat   string // "" (no log), "text" or "json": a line per phase and a summary on Log
+	MetricsPath string // Prometheus text file written after a successful run
 
 	Version string           // program version, recorded in the manifest
 	Now     func() time.Time // clock for created_at
 	Out     io.Writer        // human-readable progress and results
+	Log     io.Writer        // log lines (LogFormat); nil means io.Discard
 }
 
 // Overrides are command-line values; nil (or a nil slice) means "not given".
@@ -71,6 +78,7 @@ type Overrides struct {
 	Columns, Exclude                                                []string
 	Workers                                                         *int
 	Overwrite                                                       bool
+	Fit                                                             *string // replaces the job file's [fit] section
 }
 
 // jobFile is the TOML job file. Unknown keys are errors.
@@ -83,6 +91,9 @@ type jobFile struct {
 	OutputType  string     `toml:"output_type"`
 	OnInfinity  string     `toml:"on_infinity"`
 	Rules       []fileRule `toml:"rule"`
+	Fit         struct {
+		Where []string `toml:"where"` // conditions, all must hold; ParseFit syntax
+	} `toml:"fit"`
 }
 
 type fileRule struct {
@@ -188,6 +199,20 @@ func Load(jobPath string, o Overrides) (Config, error) {
 		cfg.InfPolicy = p
 	default:
 		return Config{}, wrap(fmt.Errorf("on-infinity %q: want error or skip", text))
+	}
+
+	if o.Fit != nil {
+		if cfg.Fit, err = ParseFit(*o.Fit); err != nil {
+			return Config{}, flagErr(err)
+		}
+	} else {
+		for _, w := range jf.Fit.Where {
+			f, err := ParseFit(w)
+			if err != nil {
+				return Config{}, fileErr(fmt.Errorf("fit: %w", err))
+			}
+			cfg.Fit = append(cfg.Fit, f...)
+		}
 	}
 
 	// Column rules: --columns/--exclude/--method replace the file's rules.
@@ -300,6 +325,7 @@ func (c *Config) settings() manifests.Settings {
 		OutputType:  "float64",
 		Compression: string(c.Compression),
 		InfPolicy:   string(c.InfPolicy),
+		Fit:         c.Fit.String(),
 	}
 	if c.Output != "" {
 		s.Output = filepath.ToSlash(filepath.Clean(c.Output))

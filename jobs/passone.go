@@ -17,6 +17,7 @@ type fileResult struct {
 	Bytes  int64
 	SHA256 string
 	Accs   []*stats.Accumulator // one per selected column, plan order
+	Origin origin               // measured, cached or (not fitted) only described
 }
 
 // forEachFile runs task for every file on one pool of cfg.Workers
@@ -50,7 +51,9 @@ func passOne(ctx context.Context, cfg *Config, p *plan) ([]fileResult, error) {
 	return results, err
 }
 
-// measureFile streams one file's selected columns into fresh accumulators.
+// measureFile streams one file's selected columns into fresh accumulators,
+// unless p.reuse has its result (from the cache, or rows and hash only for
+// a file the fit filter leaves out).
 func measureFile(ctx context.Context, cfg *Config, p *plan, i int) (fileResult, error) {
 	f := p.Files[i]
 	r, err := arrowio.Open(f.Abs, memory.DefaultAllocator)
@@ -67,6 +70,10 @@ func measureFile(ctx context.Context, cfg *Config, p *plan, i int) (fileResult, 
 	}
 	if err := p.checkSelection(r.Schema(), f.Rel); err != nil {
 		return fileResult{}, err
+	}
+	res, done, err := p.reuse(cfg, i, r)
+	if done || err != nil {
+		return res, err
 	}
 	accs := make([]*stats.Accumulator, len(p.Columns))
 	for j, c := range p.Columns {
@@ -89,7 +96,8 @@ func measureFile(ctx context.Context, cfg *Config, p *plan, i int) (fileResult, 
 	if err != nil {
 		return fileResult{}, err
 	}
-	return fileResult{Rows: r.NumRows(), Bytes: size, SHA256: sum, Accs: accs}, nil
+	res.Rows, res.Bytes, res.SHA256, res.Accs = r.NumRows(), size, sum, accs
+	return res, nil
 }
 
 // addRowGroup feeds one row group's batches into the accumulators,

@@ -22,8 +22,9 @@ var hookFileWritten = func(rel string) {}
 
 // written is what pass two learns about one file.
 type written struct {
-	In  fileResult // rows, bytes and hash of the input (Accs unused)
-	Out arrowio.Written
+	In      fileResult // rows, bytes and hash of the input (Accs unused)
+	Out     arrowio.Written
+	Outside []manifests.OutOfRange // per column, when the plan has bounds
 }
 
 // passTwo writes every input's scaled copy; results are in file order.
@@ -80,12 +81,13 @@ func scaleFile(ctx context.Context, cfg *Config, p *plan, i int, params []stats.
 	schema := outputSchema(r.Schema(), idx, cfg.Float32)
 	opts := arrowio.WriteOptions{
 		Compression: cfg.Compression,
-		Metadata:    map[string]string{manifests.MetadataKey: meta},
+		Metadata:    map[string]string{p.metaKey(): meta},
 	}
 	dst := filepath.Join(cfg.Output, filepath.FromSlash(f.Rel))
+	mapCol, outside := p.columnMapper(cfg, params)
 	out, err := arrowio.WriteParquetAtomic(ctx, dst, schema, opts, func(w *pqarrow.FileWriter) error {
 		for rg := range r.NumRowGroups() {
-			if err := scaleRowGroup(ctx, cfg, r, rg, schema, which, p.Columns, params, w); err != nil {
+			if err := scaleRowGroup(ctx, cfg, r, rg, schema, which, p.Columns, mapCol, w); err != nil {
 				return fmt.Errorf("%s: %w", f.Rel, err)
 			}
 		}
@@ -95,7 +97,7 @@ func scaleFile(ctx context.Context, cfg *Config, p *plan, i int, params []stats.
 		return written{}, err
 	}
 	hookFileWritten(f.Rel)
-	res := written{In: fileResult{Rows: r.NumRows()}, Out: out}
+	res := written{In: fileResult{Rows: r.NumRows()}, Out: out, Outside: outside()}
 	if out.Rows != r.NumRows() {
 		return written{}, fmt.Errorf("%s: wrote %d rows, read %d", f.Rel, out.Rows, r.NumRows())
 	}
@@ -109,7 +111,7 @@ func scaleFile(ctx context.Context, cfg *Config, p *plan, i int, params []stats.
 
 // scaleRowGroup writes one input row group as one output row group.
 func scaleRowGroup(ctx context.Context, cfg *Config, r *arrowio.Reader, rg int, schema *arrow.Schema,
-	which []int, cols []column, params []stats.Params, w *pqarrow.FileWriter) error {
+	which []int, cols []column, mapCol func(j int, a arrow.Array) (arrow.Array, error), w *pqarrow.FileWriter) error {
 	rr, err := r.Records(ctx, rg, nil, cfg.BatchRows)
 	if err != nil {
 		return err
@@ -132,7 +134,7 @@ func scaleRowGroup(ctx context.Context, cfg *Config, r *arrowio.Reader, rg int, 
 				arrays[k].Retain()
 				continue
 			}
-			a, err := stats.Transform(memory.DefaultAllocator, rec.Column(k), params[j], cfg.Float32)
+			a, err := mapCol(j, rec.Column(k))
 			if err != nil {
 				releaseAll(arrays[:k])
 				return fmt.Errorf("column %s: %w", cols[j].Name, err)

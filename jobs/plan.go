@@ -25,6 +25,11 @@ type plan struct {
 	Files   []arrowio.File
 	Columns []column
 	Rules   []Rule // the rules Columns came from; nil when they came from a parameters file
+	Fit     []bool // inputs selected by the fit filter; nil: every input
+	cache   *statsCache
+
+	bounds   [][2]float64 // per column, fitted [min, max] to count values outside of; nil: no counting
+	inverted bool         // pass two maps back to original units (invert)
 }
 
 // partitionName is the Hive partition of a file as "k=v/k=v", or its path.

@@ -26,20 +26,38 @@ const (
 	markerName   = "_uncommitted"
 )
 
-// Run makes both passes: statistics over every input, then scaled copies,
-// then the manifest.
-func Run(ctx context.Context, cfg Config) error {
+// Run makes both passes: statistics over every input (or those the fit
+// filter selects, taking unchanged files from the cache), then scaled
+// copies, then the manifest. It holds the output's lock throughout.
+func Run(ctx context.Context, cfg Config) (err error) {
 	if err := cfg.checkPaths(true); err != nil {
+		return err
+	}
+	log, err := newRunLog(&cfg, "run")
+	if err != nil {
+		return err
+	}
+	defer func() { err = log.done(err) }()
+	unlock, err := lockOutput(&cfg, log)
+	if err != nil {
+		return err
+	}
+	defer unlock()
+	if err := checkOutput(&cfg); err != nil {
 		return err
 	}
 	p, err := discover(cfg.Input, cfg.Rules)
 	if err != nil {
 		return err
 	}
+	if err := p.nightly(&cfg, filepath.Join(cfg.Output, cacheDirName), log); err != nil {
+		return err
+	}
 	results, err := passOne(ctx, &cfg, p)
 	if err != nil {
 		return err
 	}
+	log.passOne(results)
 	cols, params, err := fitColumns(p, results)
 	if err != nil {
 		return err
@@ -48,41 +66,61 @@ func Run(ctx context.Context, cfg Config) error {
 	if err := prepareOutput(&cfg); err != nil {
 		return err
 	}
+	if err := p.saveCache(ctx, &cfg, results, log); err != nil {
+		return err
+	}
+	if cfg.Fit != nil {
+		p.bounds = boundsOf(cols) // files outside the fit slice may fall outside
+	}
 	m := cfg.newManifest(manifests.KindDataset, cols)
 	outs, err := passTwo(ctx, &cfg, p, params, fileMeta(m), false)
 	if err != nil {
 		return err
 	}
+	log.passTwo(outs)
 	for i := range outs {
 		outs[i].In = results[i]
 	}
-	return commit(ctx, &cfg, p, m, outs)
+	return p.commit(ctx, &cfg, m, outs, log)
 }
 
 // Measure makes pass one only and writes the statistics file.
-func Measure(ctx context.Context, cfg Config) error {
+func Measure(ctx context.Context, cfg Config) (err error) {
 	if err := cfg.checkPaths(false); err != nil {
 		return err
 	}
 	if cfg.StatsPath == "" {
 		return fmt.Errorf("%w: no statistics file: give --stats", ErrUsage)
 	}
+	log, err := newRunLog(&cfg, "measure")
+	if err != nil {
+		return err
+	}
+	defer func() { err = log.done(err) }()
 	p, err := discover(cfg.Input, cfg.Rules)
 	if err != nil {
+		return err
+	}
+	if err := p.nightly(&cfg, "", log); err != nil {
 		return err
 	}
 	results, err := passOne(ctx, &cfg, p)
 	if err != nil {
 		return err
 	}
+	log.passOne(results)
 	cols, _, err := fitColumns(p, results)
 	if err != nil {
 		return err
 	}
-	m := cfg.newManifest(manifests.KindStatistics, cols)
-	for i, f := range p.Files {
-		m.Inputs = append(m.Inputs, input(f, results[i]))
+	if err := p.saveCache(ctx, &cfg, results, log); err != nil {
+		return err
 	}
+	m := cfg.newManifest(manifests.KindStatistics, cols)
+	for i := range p.Files {
+		m.Inputs = append(m.Inputs, p.input(i, results[i]))
+	}
+	log.sum.Warnings = countWarnings(m.Columns)
 	if err := writeManifest(cfg.StatsPath, m); err != nil {
 		return err
 	}
@@ -92,13 +130,27 @@ func Measure(ctx context.Context, cfg Config) error {
 }
 
 // Apply makes pass two only, with parameters from a manifest or a
-// statistics file; nothing is re-measured.
-func Apply(ctx context.Context, cfg Config) error {
+// statistics file; nothing is re-measured. Values outside the fitted
+// [min, max] are counted per column and raise a warning.
+func Apply(ctx context.Context, cfg Config) (err error) {
 	if err := cfg.checkPaths(true); err != nil {
 		return err
 	}
 	if cfg.ParamsPath == "" {
 		return fmt.Errorf("%w: no parameters: give --params", ErrUsage)
+	}
+	log, err := newRunLog(&cfg, "apply")
+	if err != nil {
+		return err
+	}
+	defer func() { err = log.done(err) }()
+	unlock, err := lockOutput(&cfg, log)
+	if err != nil {
+		return err
+	}
+	defer unlock()
+	if err := checkOutput(&cfg); err != nil {
+		return err
 	}
 	raw, err := arrowio.ReadFile(cfg.ParamsPath)
 	if err != nil {
@@ -112,7 +164,7 @@ func Apply(ctx context.Context, cfg Config) error {
 	if err != nil {
 		return err
 	}
-	p := &plan{Files: files}
+	p := &plan{Files: files, bounds: boundsOf(src.Columns)}
 	params := make([]stats.Params, len(src.Columns))
 	if err := p.columnsFrom(src); err != nil {
 		return err
@@ -126,6 +178,7 @@ func Apply(ctx context.Context, cfg Config) error {
 	m := cfg.newManifest(manifests.KindDataset, src.Columns)
 	m.Job.Settings.Rules = src.Job.Settings.Rules
 	m.Job.Settings.Std = src.Job.Settings.Std
+	m.Job.Settings.Fit = src.Job.Settings.Fit
 	m.Job.SHA256 = m.Job.Settings.Digest()
 	sum := sha256.Sum256(raw)
 	m.ParamsSource = &manifests.ParamsSource{Path: filepath.ToSlash(cfg.ParamsPath), Kind: src.Kind, SHA256: hex.EncodeToString(sum[:])}
@@ -133,7 +186,12 @@ func Apply(ctx context.Context, cfg Config) error {
 	if err != nil {
 		return err
 	}
-	return commit(ctx, &cfg, p, m, outs)
+	log.passTwo(outs)
+	for _, o := range outs {
+		log.sum.Rows += o.In.Rows
+		log.sum.Bytes += o.In.Bytes
+	}
+	return p.commit(ctx, &cfg, m, outs, log)
 }
 
 // columnsFrom selects the columns a parameters document names, checking
@@ -162,7 +220,7 @@ func (p *plan) columnsFrom(src *manifests.Manifest) error {
 
 // fitColumns merges the per-file states and fits each column's method.
 func fitColumns(p *plan, results []fileResult) ([]manifests.Column, []stats.Params, error) {
-	totals, err := merge(p, results, nil)
+	totals, err := merge(p, results, p.Fit)
 	if err != nil {
 		return nil, nil, err
 	}
@@ -287,24 +345,35 @@ func Version(version string) string {
 	return s + " " + t.GoVersion
 }
 
-// prepareOutput makes sure the output tree may be written: absent, empty,
+// checkOutput makes sure the output tree may be written: absent, empty,
 // an uncommitted earlier run, or (with Overwrite) a committed dataset.
-// It marks the tree uncommitted and removes leftover temporary files.
-func prepareOutput(cfg *Config) error {
+// The lock file and the statistics cache do not count.
+func checkOutput(cfg *Config) error {
 	names, exists, err := arrowio.ListDir(cfg.Output)
 	if err != nil {
 		return err
 	}
 	has := make(map[string]bool, len(names))
 	for _, n := range names {
-		has[n] = true
+		if n != lockName && n != cacheDirName {
+			has[n] = true
+		}
 	}
 	switch {
-	case !exists || len(names) == 0 || has[markerName]:
+	case !exists || len(has) == 0 || has[markerName]:
 	case has[ManifestName] && !cfg.Overwrite:
 		return fmt.Errorf("%w: %s holds a committed dataset (%s); give --overwrite to replace it", ErrOutputNotEmpty, cfg.Output, ManifestName)
 	case !has[ManifestName] && !cfg.Overwrite:
 		return fmt.Errorf("%w: %s holds files lakescale did not write; want an absent or empty directory, or --overwrite", ErrOutputNotEmpty, cfg.Output)
+	}
+	return nil
+}
+
+// prepareOutput checks the output tree (checkOutput), marks it
+// uncommitted and removes leftover temporary files.
+func prepareOutput(cfg *Config) error {
+	if err := checkOutput(cfg); err != nil {
+		return err
 	}
 	if err := arrowio.MkdirAll(cfg.Output); err != nil {
 		return err
@@ -323,13 +392,13 @@ func prepareOutput(cfg *Config) error {
 	if err := arrowio.Remove(filepath.Join(cfg.Output, ManifestName)); err != nil {
 		return err
 	}
-	_, err = arrowio.RemoveTemps(cfg.Output)
+	_, err := arrowio.RemoveTemps(cfg.Output)
 	return err
 }
 
 // commit checks every output, removes stale files of an earlier run,
 // writes the manifest last and removes the uncommitted marker.
-func commit(ctx context.Context, cfg *Config, p *plan, m *manifests.Manifest, outs []written) error {
+func (p *plan) commit(ctx context.Context, cfg *Config, m *manifests.Manifest, outs []written, log *runLog) error {
 	want := make(map[string]bool, len(p.Files))
 	var rows int64
 	for i, f := range p.Files {
@@ -343,7 +412,7 @@ func commit(ctx context.Context, cfg *Config, p *plan, m *manifests.Manifest, ou
 		}
 		want[f.Rel] = true
 		rows += n
-		m.Inputs = append(m.Inputs, input(f, outs[i].In))
+		m.Inputs = append(m.Inputs, p.input(i, outs[i].In))
 		m.Outputs = append(m.Outputs, manifests.Output{Path: f.Rel, Rows: outs[i].Out.Rows, Bytes: outs[i].Out.Bytes, SHA256: outs[i].Out.SHA256})
 	}
 	if err := context.Cause(ctx); err != nil {
@@ -359,6 +428,10 @@ func commit(ctx context.Context, cfg *Config, p *plan, m *manifests.Manifest, ou
 		}
 	}
 	sort.Slice(m.Outputs, func(i, j int) bool { return m.Outputs[i].Path < m.Outputs[j].Path })
+	if p.bounds != nil {
+		addOutside(m.Columns, outs)
+	}
+	log.sum.Warnings = countWarnings(m.Columns)
 	manifestPath := filepath.Join(cfg.Output, ManifestName)
 	if err := writeManifest(manifestPath, m); err != nil {
 		return err
@@ -366,8 +439,13 @@ func commit(ctx context.Context, cfg *Config, p *plan, m *manifests.Manifest, ou
 	if err := arrowio.Remove(filepath.Join(cfg.Output, markerName)); err != nil {
 		return err
 	}
-	fmt.Fprintf(cfg.Out, "scaled %d columns in %d files (%d rows) into %s\nmanifest: %s\n",
-		len(m.Columns), len(m.Outputs), rows, cfg.Output, manifestPath)
+	verb := "scaled"
+	if p.inverted {
+		verb = "mapped back"
+	}
+	fmt.Fprintf(cfg.Out, "%s %d columns in %d files (%d rows) into %s\nmanifest: %s\n",
+		verb, len(m.Columns), len(m.Outputs), rows, cfg.Output, manifestPath)
+	log.phase("commit", "manifest", manifestPath)
 	return nil
 }
 
