@@ -167,7 +167,8 @@ func (h *floatHot) special(b uint64) {
 
 // runChunk bounds the values one floatRuns pass adds before flushing to
 // the slot: 1024·(2^53 - 1) < 2^63, so the run's Σ±m fits an int64, and
-// 1024·2^106 < 2^128, so its Σm² fits two words.
+// 1024·2^106 < 2^128, so its Σm² fits two words. (addFloats' blocks are
+// smaller still; the bound keeps floatRuns right on its own.)
 const runChunk = 1024
 
 // floatRuns adds vals run by run of equal biased exponent, the run's sums

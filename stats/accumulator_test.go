@@ -677,6 +677,41 @@ func TestUnmarshalRejects(t *testing.T) {
 			return b
 		}()),
 	}
+	// States that break exactly one consistency rule, encoded field by
+	// field (MarshalBinary does not validate). Integer kinds: scale 1.
+	craft := func(k Kind, n uint64, lo, hi int64, sum, sq int64) []byte {
+		c := NewAccumulator(k)
+		c.n = n
+		if k == KindSigned {
+			c.minKey, c.maxKey = signedKey(lo), signedKey(hi)
+		} else {
+			c.minKey, c.maxKey = uint64(lo), uint64(hi)
+		}
+		c.s.SetInt64(sum)
+		c.q.SetInt64(sq)
+		b, err := c.MarshalBinary()
+		if err != nil {
+			t.Fatal(err)
+		}
+		return b
+	}
+	// Control: a consistent crafted state ({-1, 1, 1}) is accepted.
+	if err := d.UnmarshalBinary(craft(KindSigned, 3, -1, 1, 1, 3)); err != nil {
+		t.Fatalf("consistent crafted state rejected: %v", err)
+	}
+	for name, bad := range map[string][]byte{
+		"S² > n·Q only":            craft(KindSigned, 3, -1, 1, 3, 1),
+		"two values, wrong Q":      craft(KindSigned, 2, 1, 5, 6, 25),
+		"Q above n·max²":           craft(KindSigned, 3, 0, 2, 3, 13),
+		"one value, Q not S²":      craft(KindUnsigned, 1, 5, 5, 5, 26),
+		"empty with a sum":         craft(KindSigned, 0, 0, 0, 0, 0),
+		"sum below n·min":          craft(KindUnsigned, 3, 2, 9, 5, 100),
+		"unsigned one value wrong": craft(KindUnsigned, 1, 5, 5, 4, 25),
+	} {
+		if err := d.UnmarshalBinary(bad); !errors.Is(err, ErrCorruptState) {
+			t.Errorf("%s: accepted or wrong error: %v", name, err)
+		}
+	}
 	for name, bad := range cases {
 		if err := d.UnmarshalBinary(bad); !errors.Is(err, ErrCorruptState) {
 			t.Errorf("%s: accepted or wrong error: %v", name, err)
