@@ -80,9 +80,9 @@ func KindOf(t arrow.DataType) (Kind, bool) {
 // MarshalBinary bytes) of one accumulator fed every value.
 //
 // While values are being added, KindFloat sums live in per-exponent
-// fixed-width slots (a 128-bit two's-complement Σ±m and a 192-bit Σm² for
-// each biased exponent, m the integer significand), after R. M. Neal,
-// "Fast exact summation using small and large superaccumulators",
+// fixed-width integer slots (for each biased exponent, 128-bit sums of the
+// integer significands m and a 192-bit sum of m²), after R. M. Neal, "Fast
+// exact summation using small and large superaccumulators",
 // arXiv:1505.05571 (2015). Integer kinds keep a 128-bit sum and a 192-bit
 // sum of squares. A decoded state holds S and Q as big.Int; the two forms
 // are folded together on Marshal, Merge and Summary, so a decoded state and
