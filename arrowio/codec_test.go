@@ -1,0 +1,114 @@
+package arrowio
+
+import (
+	"bytes"
+	"fmt"
+	"math/rand/v2"
+	"os"
+	"sync"
+	"testing"
+
+	"github.com/apache/arrow/go/v17/arrow/memory"
+	"github.com/apache/arrow/go/v17/parquet/compress"
+	"github.com/klauspost/compress/zstd"
+)
+
+// useCodec registers c for zstd until the end of the test. The codec table
+// is a plain map, so tests that call this must not run in parallel.
+func useCodec(t testing.TB, c compress.Codec) {
+	compress.RegisterCodec(compress.Codecs.Zstd, c)
+	t.Cleanup(func() { compress.RegisterCodec(compress.Codecs.Zstd, reuseZstd{stockZstd}) })
+}
+
+// TestReuseZstdRegistered checks that package init replaced Arrow's codec.
+func TestReuseZstdRegistered(t *testing.T) {
+	c, err := compress.GetCodec(compress.Codecs.Zstd)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, ok := c.(reuseZstd); !ok {
+		t.Fatalf("zstd codec is %T, want reuseZstd", c)
+	}
+}
+
+// TestReuseZstdFrames compresses blocks at several levels, from several
+// goroutines at once, and decodes each with a fresh decoder of
+// github.com/klauspost/compress/zstd; each must also equal what Arrow's own
+// codec produces for the same input.
+func TestReuseZstdFrames(t *testing.T) {
+	dec, err := zstd.NewReader(nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer dec.Close()
+	rng := rand.New(rand.NewPCG(1, 2))
+	blocks := make([][]byte, 8)
+	for i := range blocks {
+		b := make([]byte, 1000+rng.IntN(60_000))
+		for j := range b {
+			b[j] = byte(rng.IntN(8 + 32*i)) // from very to hardly compressible
+		}
+		blocks[i] = b
+	}
+	blocks = append(blocks, []byte{}) // empty input still makes a frame
+	levels := []int{compress.DefaultCompressionLevel, 1, 3, 7}
+	var wg sync.WaitGroup
+	errs := make([]error, len(blocks)*len(levels))
+	for i, src := range blocks {
+		for j, level := range levels {
+			wg.Add(1)
+			go func() {
+				defer wg.Done()
+				got := reuseZstd{stockZstd}.EncodeLevel(nil, src, level)
+				want := stockZstd.EncodeLevel(nil, src, level)
+				plain, err := dec.DecodeAll(got, nil)
+				switch {
+				case err != nil:
+					errs[i*len(levels)+j] = fmt.Errorf("block %d level %d: %v", i, level, err)
+				case !bytes.Equal(plain, src):
+					errs[i*len(levels)+j] = fmt.Errorf("block %d level %d: round trip differs", i, level)
+				case !bytes.Equal(got, want):
+					errs[i*len(levels)+j] = fmt.Errorf("block %d level %d: %d bytes, Arrow's codec gives %d", i, level, len(got), len(want))
+				}
+			}()
+		}
+	}
+	wg.Wait()
+	for _, err := range errs {
+		if err != nil {
+			t.Error(err)
+		}
+	}
+}
+
+// TestReuseZstdFileMatchesStock writes the same data with Arrow's codec
+// and with the reusing one: the files must be byte-identical, and both
+// read back equal through github.com/xitongsys/parquet-go.
+func TestReuseZstdFileMatchesStock(t *testing.T) {
+	mem := memory.NewCheckedAllocator(memory.NewGoAllocator())
+	defer mem.AssertSize(t, 0)
+	rows := mixedRows(20_000)
+	reused := tempPath(t, "reuse.parquet")
+	writeRows(t, mem, reused, rows, 4096, WriteOptions{Compression: Zstd, RowGroupRows: 8192})
+	stock := tempPath(t, "stock.parquet")
+	useCodec(t, stockZstd)
+	writeRows(t, mem, stock, rows, 4096, WriteOptions{Compression: Zstd, RowGroupRows: 8192})
+	a, err := os.ReadFile(reused)
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, err := os.ReadFile(stock)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !bytes.Equal(a, b) {
+		t.Errorf("reuse codec file (%d bytes) differs from Arrow codec file (%d bytes)", len(a), len(b))
+	}
+	for _, p := range []string{reused, stock} {
+		n, _, cols := independentRead(t, p)
+		if n != int64(len(rows)) {
+			t.Fatalf("%s: %d rows", p, n)
+		}
+		checkMixed(t, cols, rows)
+	}
+}
