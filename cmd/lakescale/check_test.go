@@ -212,6 +212,11 @@ type testManifest struct {
 			Center json.Number `json:"center"`
 			Scale  json.Number `json:"scale"`
 		} `json:"params"`
+		Warnings   []string `json:"warnings"`
+		OutOfRange *struct {
+			Below uint64 `json:"below"`
+			Above uint64 `json:"above"`
+		} `json:"out_of_range"`
 	} `json:"columns"`
 	Inputs  []testEntry `json:"inputs"`
 	Outputs []testEntry `json:"outputs"`
@@ -314,7 +319,7 @@ func checkEntries(p *problems, kind, root string, entries []testEntry) {
 			segs := strings.Split(e.Path, "/")
 			for _, s := range segs[:len(segs)-1] {
 				if k, v, ok := strings.Cut(s, "="); ok {
-					want[k] = v
+					want[hiveUnescape(k)] = hiveUnescape(v)
 				}
 			}
 			if fmt.Sprint(want) != fmt.Sprint(e.Partition) {
@@ -322,6 +327,23 @@ func checkEntries(p *problems, kind, root string, entries []testEntry) {
 			}
 		}
 	}
+}
+
+// hiveUnescape decodes a Hive partition path segment: "%XX" with two hex
+// digits is the byte 0xXX; any other '%' stands for itself.
+func hiveUnescape(s string) string {
+	var b strings.Builder
+	for i := 0; i < len(s); i++ {
+		if s[i] == '%' && i+2 < len(s) {
+			if v, err := strconv.ParseUint(s[i+1:i+3], 16, 8); err == nil {
+				b.WriteByte(byte(v))
+				i += 2
+				continue
+			}
+		}
+		b.WriteByte(s[i])
+	}
+	return b.String()
 }
 
 // cmdCheckOutput checks a committed output dataset value by value.
@@ -335,7 +357,8 @@ func checkEntries(p *problems, kind, root string, entries []testEntry) {
 // scales must hold (float64(x) - center) / scale, bit for bit (rounded
 // once to float32 when output_type is float32), with nulls null and NaN
 // NaN; every other column must be identical; the row order is kept. The
-// parameters embedded in each output's footer must match the manifest.
+// parameters embedded in each output's footer must match the manifest,
+// and so must a column's out_of_range counts when the manifest has them.
 func cmdCheckOutput(ts *testscript.TestScript, neg bool, args []string) {
 	noNeg(ts, neg, "check-output")
 	if len(args) != 2 {
@@ -352,16 +375,21 @@ func cmdCheckOutput(ts *testscript.TestScript, neg bool, args []string) {
 	checkEntries(&p, "output", out, m.Outputs)
 	p.fatal(ts, "check-output "+args[1])
 
-	type param struct{ center, scale float64 }
+	type param struct{ center, scale, min, max float64 }
 	params := map[string]param{}
 	for _, c := range m.Columns {
 		center, err1 := strconv.ParseFloat(string(c.Params.Center), 64)
 		scale, err2 := strconv.ParseFloat(string(c.Params.Scale), 64)
-		if err := errors.Join(err1, err2); err != nil {
+		lo, err3 := exactFloat(string(c.Stats["min"]))
+		hi, err4 := exactFloat(string(c.Stats["max"]))
+		if err := errors.Join(err1, err2, err3, err4); err != nil {
 			ts.Fatalf("column %s: %v", c.Name, err)
 		}
-		params[c.Name] = param{center, scale}
+		params[c.Name] = param{center, scale, lo, hi}
 	}
+	// below and above count the finite inputs (as float64) outside each
+	// column's fitted [min, max], for the manifest's out_of_range.
+	below, above := map[string]uint64{}, map[string]uint64{}
 	float32Out := m.Job.Settings.OutputType == "float32"
 	wantPhysical := parquet.Type_DOUBLE
 	if float32Out {
@@ -418,6 +446,13 @@ func cmdCheckOutput(ts *testscript.TestScript, neg bool, args []string) {
 					p.add("%s: %s row %d: input %v (%T) is not numeric", o.Path, dc.Name, k, x, x)
 					continue
 				}
+				if !math.IsInf(fx, 0) {
+					if fx < prm.min {
+						below[dc.Name]++
+					} else if fx > prm.max {
+						above[dc.Name]++
+					}
+				}
 				var want any = (fx - prm.center) / prm.scale
 				if float32Out {
 					want = float32(want.(float64))
@@ -433,6 +468,20 @@ func cmdCheckOutput(ts *testscript.TestScript, neg bool, args []string) {
 			}
 		}
 		checkEmbedded(&p, o.Path, dst.Meta["lakescale.params"], m)
+	}
+	// out_of_range is optional; when present it must hold these counts,
+	// with the warning outside_fitted_range exactly when one is non-zero.
+	for _, c := range m.Columns {
+		if c.OutOfRange == nil {
+			continue
+		}
+		if c.OutOfRange.Below != below[c.Name] || c.OutOfRange.Above != above[c.Name] {
+			p.add("column %s: out_of_range below %d above %d, inputs have %d below min and %d above max",
+				c.Name, c.OutOfRange.Below, c.OutOfRange.Above, below[c.Name], above[c.Name])
+		}
+		if warned := slices.Contains(c.Warnings, "outside_fitted_range"); warned != (below[c.Name]+above[c.Name] > 0) {
+			p.add("column %s: warnings %q with %d values outside the fitted range", c.Name, c.Warnings, below[c.Name]+above[c.Name])
+		}
 	}
 	p.fatal(ts, "check-output "+args[1])
 	ts.Logf("check-output: %d files, %d values match", len(m.Outputs), values)
@@ -615,14 +664,14 @@ func cmdCheckStats(ts *testscript.TestScript, neg bool, args []string) {
 // independent reader and checks a statistic of its finite values, computed
 // here in float64, against WANT within TOL (absolute).
 //
-//	col-stat OUT COLUMN min|max|absmax|mean|std WANT TOL
+//	col-stat OUT COLUMN min|max|absmax|range|mean|std WANT TOL
 //
 // std is the population standard deviation. It shows what a method
 // promises (for example minmax onto [-1, 1], or z-scores with mean 0 and
 // standard deviation 1) without trusting the manifest's parameters.
 func cmdColStat(ts *testscript.TestScript, neg bool, args []string) {
 	if len(args) != 5 {
-		ts.Fatalf("usage: col-stat OUT COLUMN min|max|absmax|mean|std WANT TOL")
+		ts.Fatalf("usage: col-stat OUT COLUMN min|max|absmax|range|mean|std WANT TOL")
 	}
 	want, err1 := strconv.ParseFloat(args[3], 64)
 	tol, err2 := strconv.ParseFloat(args[4], 64)
@@ -660,6 +709,8 @@ func cmdColStat(ts *testscript.TestScript, neg bool, args []string) {
 		got = slices.Max(xs)
 	case "absmax":
 		got = max(math.Abs(slices.Min(xs)), math.Abs(slices.Max(xs)))
+	case "range":
+		got = slices.Max(xs) - slices.Min(xs)
 	case "mean":
 		got = mean
 	case "std":

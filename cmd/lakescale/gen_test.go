@@ -64,9 +64,10 @@ func fileColumn(vals []string) (map[string]map[string]bool, error) {
 // with deterministic values from a seeded generator.
 //
 //	gen-lake DIR [-sites a,b] [-days 1,2] [-parts 2] [-rows 250] [-rowgroup 100] [-seed 1]
-//	         [-inf REL] [-drop REL:COL] [-retype REL:COL] [-empty REL]
+//	         [-inf REL] [-drop REL:COL] [-retype REL:COL] [-empty REL] [-set COL=VALUE]
 //
-// -inf puts +Inf into column wind of file REL at row rowgroup+3 (so in row
+// -set gives column COL the value VALUE (a number, or null) in every row
+// of every file; -inf puts +Inf into column wind of file REL at row rowgroup+3 (so in row
 // group 1); -drop leaves a column out of one file; -retype writes a column
 // of one file with another type (int32->int64, int64->float64,
 // uint64->int64, float64->float32, float32->float64); -empty writes REL
@@ -83,11 +84,12 @@ func cmdGenLake(ts *testscript.TestScript, neg bool, args []string) {
 	rows := fs.Int("rows", 250, "rows per file")
 	rowGroup := fs.Int64("rowgroup", 100, "rows per row group")
 	seed := fs.Uint64("seed", 1, "generator seed")
-	var infs, drops, retypes, empties listFlag
+	var infs, drops, retypes, empties, sets listFlag
 	fs.Var(&infs, "inf", "file REL gets a +Inf in wind")
 	fs.Var(&drops, "drop", "REL:COL: leave COL out of REL")
 	fs.Var(&retypes, "retype", "REL:COL: write COL of REL with another type")
 	fs.Var(&empties, "empty", "file REL has no rows")
+	fs.Var(&sets, "set", "COL=VALUE: every row of COL holds VALUE (a number or null)")
 	ts.Check(fs.Parse(args[1:]))
 	if fs.NArg() > 0 {
 		ts.Fatalf("gen-lake: unexpected argument %q", fs.Arg(0))
@@ -115,6 +117,15 @@ func cmdGenLake(ts *testscript.TestScript, neg bool, args []string) {
 					}
 				}
 				cols := lakeColumns(*seed, rel, n, inf)
+				for _, set := range sets {
+					name, value, _ := strings.Cut(set, "=")
+					if _, ok := cols[name]; !ok && n > 0 {
+						ts.Fatalf("gen-lake: -set %s: no such column", set)
+					}
+					for i := range cols[name] {
+						cols[name][i] = setValue(ts, value)
+					}
+				}
 				schema := lakeSchema()
 				fields := []arrow.Field{}
 				for _, f := range schema.Fields() {
@@ -192,6 +203,20 @@ func lakeColumns(seed uint64, rel string, n, inf int) map[string][]any {
 		cols["serial"] = append(cols["serial"], uint64(1)<<60+rng.Uint64N(1<<40))
 	}
 	return cols
+}
+
+// setValue parses a -set value: null, an integer or a float (appendValue
+// converts it to the column's type).
+func setValue(ts *testscript.TestScript, s string) any {
+	if s == "null" {
+		return nil
+	}
+	if i, err := strconv.ParseInt(s, 10, 64); err == nil {
+		return i
+	}
+	f, err := strconv.ParseFloat(s, 64)
+	ts.Check(err)
+	return f
 }
 
 // otherType is the type -retype writes instead of t.

@@ -35,20 +35,21 @@ var nistDir = func() string {
 // Commands besides testscript's own (all run inside the test process):
 //
 //	gen-lake DIR [-sites a,b] [-days 1,2] [-parts N] [-rows N] [-rowgroup N] [-seed N]
-//	         [-inf REL] [-drop REL:COL] [-retype REL:COL] [-empty REL]
+//	         [-inf REL] [-drop REL:COL] [-retype REL:COL] [-empty REL] [-set COL=VALUE]
 //	gen-nist NAME DIR PARTS
 //	check-output IN OUT
 //	check-stats IN MANIFEST
-//	col-stat OUT COLUMN min|max|absmax|mean|std WANT TOL
+//	col-stat OUT COLUMN min|max|absmax|range|mean|std WANT TOL
 //	manifest-field FILE PATH WANT
 //	manifest-lre FILE PATH CERTIFIED DIGITS
 //	sha256-of FILE PATH TARGET
-//	cmp-manifest [-fields a,b] A B
+//	cmp-manifest [-fields a,b] [-ignore columns[].x,...] A B
 //	cmp-tree A B
 //	corrupt FILE truncate|garbage|append|flip
 //	exitcode N PROG [ARGS...]
 //	interrupt INT|TERM|KILL WANT DIR PROG [ARGS...]
 //	no-temps DIR
+//	lock FILE live|dead|foreign|garbage
 func TestScripts(t *testing.T) {
 	testscript.Run(t, testscript.Params{
 		Dir:                 filepath.Join("testdata", "script"),
@@ -69,6 +70,7 @@ func TestScripts(t *testing.T) {
 			"exitcode":       cmdExitCode,
 			"interrupt":      cmdInterrupt,
 			"no-temps":       cmdNoTemps,
+			"lock":           cmdLock,
 		},
 		Setup: func(env *testscript.Env) error {
 			// A fixed zone keeps any local-time rendering stable.

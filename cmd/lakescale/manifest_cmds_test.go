@@ -232,16 +232,18 @@ func cmdSHA256Of(ts *testscript.TestScript, neg bool, args []string) {
 }
 
 // cmdCmpManifest compares two JSON documents ignoring created_at, or only
-// the listed top-level fields with -fields. It prints each differing
-// path.
+// the listed top-level fields with -fields, and without the values at the
+// -ignore paths (a step [] means every element of an array). It prints
+// each differing path.
 //
-//	cmp-manifest [-fields a,b] A B
+//	cmp-manifest [-fields a,b] [-ignore columns[].x,...] A B
 func cmdCmpManifest(ts *testscript.TestScript, neg bool, args []string) {
 	fs := flag.NewFlagSet("cmp-manifest", flag.ContinueOnError)
 	fields := fs.String("fields", "", "compare only these top-level fields")
+	ignore := fs.String("ignore", "", "leave out the values at these paths")
 	ts.Check(fs.Parse(args))
 	if fs.NArg() != 2 {
-		ts.Fatalf("usage: cmp-manifest [-fields a,b] A B")
+		ts.Fatalf("usage: cmp-manifest [-fields a,b] [-ignore path,...] A B")
 	}
 	var docs [2]map[string]any
 	for i := range docs {
@@ -268,6 +270,11 @@ func cmdCmpManifest(ts *testscript.TestScript, neg bool, args []string) {
 				}
 			}
 		}
+		if *ignore != "" {
+			for _, path := range strings.Split(*ignore, ",") {
+				drop(m, jsonPath(path))
+			}
+		}
 		docs[i] = m
 	}
 	var diffs []string
@@ -277,6 +284,28 @@ func cmdCmpManifest(ts *testscript.TestScript, neg bool, args []string) {
 			ts.Fatalf("%s and %s are equal", fs.Arg(0), fs.Arg(1))
 		}
 		ts.Fatalf("%s and %s differ:\n\t%s", fs.Arg(0), fs.Arg(1), strings.Join(diffs, "\n\t"))
+	}
+}
+
+// drop deletes the values at a path from decoded JSON; a step "[]" goes
+// into every element of an array.
+func drop(v any, steps []string) {
+	if len(steps) == 0 {
+		return
+	}
+	switch x := v.(type) {
+	case map[string]any:
+		if len(steps) == 1 {
+			delete(x, steps[0])
+			return
+		}
+		drop(x[steps[0]], steps[1:])
+	case []any:
+		if steps[0] == "[]" {
+			for _, e := range x {
+				drop(e, steps[1:])
+			}
+		}
 	}
 }
 

@@ -1,6 +1,7 @@
 package main
 
 import (
+	"encoding/json"
 	"errors"
 	"io/fs"
 	"os"
@@ -150,4 +151,38 @@ func cmdNoTemps(ts *testscript.TestScript, neg bool, args []string) {
 		}
 		ts.Fatalf("temporary files left under %s: %q", args[0], temps)
 	}
+}
+
+// cmdLock writes a lock file as a lakescale run holding an output would,
+// for a holder that is alive (this test process), dead (a process that
+// has exited), on another host, or an unreadable file.
+//
+//	lock FILE live|dead|foreign|garbage
+func cmdLock(ts *testscript.TestScript, neg bool, args []string) {
+	noNeg(ts, neg, "lock")
+	if len(args) != 2 {
+		ts.Fatalf("usage: lock FILE live|dead|foreign|garbage")
+	}
+	host, err := os.Hostname()
+	ts.Check(err)
+	pid := os.Getpid()
+	switch args[1] {
+	case "live":
+	case "dead":
+		cmd := exec.Command(os.Args[0], "-test.run=^$")
+		ts.Check(cmd.Run())
+		pid = cmd.ProcessState.Pid()
+	case "foreign":
+		host = "elsewhere.invalid"
+	case "garbage":
+		ts.Check(os.WriteFile(ts.MkAbs(args[0]), []byte("not a lock\n"), 0o644))
+		return
+	default:
+		ts.Fatalf("lock: unknown holder %q", args[1])
+	}
+	data, err := json.Marshal(map[string]any{"pid": pid, "host": host, "started": "2026-01-02T03:04:05Z"})
+	ts.Check(err)
+	ts.Check(os.MkdirAll(filepath.Dir(ts.MkAbs(args[0])), 0o755))
+	ts.Check(os.WriteFile(ts.MkAbs(args[0]), append(data, '\n'), 0o644))
+	ts.Setenv("LOCKPID", strconv.Itoa(pid))
 }
