@@ -105,6 +105,10 @@ func writerProps(schema *arrow.Schema, opts WriteOptions, mem memory.Allocator) 
 // cancellation the temporary file is removed and nothing appears at path.
 // The SHA-256 is computed while writing.
 //
+// w.Write starts at least one row group per call; for batches smaller than
+// a row group use w.WriteBuffered, which fills row groups up to
+// opts.RowGroupRows. An empty fill gives a valid file with no rows.
+//
 // The file stores the Arrow schema (so types round-trip), opts.Metadata
 // in the footer's key-value metadata in sorted key order, and a constant
 // created_by; the same input gives the same bytes. ctx is checked before
@@ -145,9 +149,7 @@ func WriteParquetAtomic(ctx context.Context, path string, schema *arrow.Schema, 
 		return Written{}, err
 	}
 	if invariants.Enabled {
-		if st, serr := os.Stat(path); serr == nil && st.Size() != n {
-			panic(fmt.Sprintf("arrowio: wrote %d bytes to %s but it has %d", n, path, st.Size()))
-		}
+		checkWritten(path, rows, n)
 	}
 	return Written{Rows: rows, Bytes: n, SHA256: sum}, nil
 }
@@ -197,6 +199,19 @@ func writeParquet(ctx context.Context, w io.Writer, schema *arrow.Schema, props 
 	// file.Writer.Close can drop an error from writing the footer; the tee
 	// writer keeps it, and writeAtomic checks it after this returns.
 	return int64(fw.NumRows()), nil
+}
+
+// checkWritten re-reads the committed file's size and footer and panics
+// if they disagree with what the writer counted.
+func checkWritten(path string, rows, n int64) {
+	st, err := os.Stat(path)
+	if err != nil || st.Size() != n {
+		panic(fmt.Sprintf("arrowio: wrote %d bytes to %s, stat says %v (%v)", n, path, st.Size(), err))
+	}
+	got, _, _, err := ReadFooter(path)
+	if err != nil || got != rows {
+		panic(fmt.Sprintf("arrowio: wrote %d rows to %s, footer says %d (%v)", rows, path, got, err))
+	}
 }
 
 // closeQuietly closes fw on an error path to release its buffers; the

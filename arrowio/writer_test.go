@@ -2,12 +2,18 @@ package arrowio
 
 import (
 	"bytes"
+	"context"
 	"crypto/sha256"
 	"encoding/hex"
+	"errors"
+	"io/fs"
 	"os"
+	"path/filepath"
+	"strings"
 	"testing"
 
 	"github.com/apache/arrow/go/v17/arrow/memory"
+	"github.com/apache/arrow/go/v17/parquet/pqarrow"
 )
 
 // TestWriteReadBackIndependent writes several row groups of int64,
@@ -91,5 +97,54 @@ func TestWriteDeterministic(t *testing.T) {
 	}
 	if bytes.Contains(b1, []byte("parquet-go version")) {
 		t.Error("footer carries the library's created_by, which changes with its version")
+	}
+}
+
+// TestWriteEmpty checks that a fill that writes nothing commits a valid
+// Parquet file with no rows, as github.com/xitongsys/parquet-go reads it.
+func TestWriteEmpty(t *testing.T) {
+	mem := memory.NewCheckedAllocator(memory.NewGoAllocator())
+	defer mem.AssertSize(t, 0)
+	path := tempPath(t, "empty.parquet")
+	w, err := WriteParquetAtomic(context.Background(), path, mixedSchema, WriteOptions{Mem: mem}, func(*pqarrow.FileWriter) error { return nil })
+	if err != nil || w.Rows != 0 {
+		t.Fatalf("Written %+v, %v", w, err)
+	}
+	f, err := os.Open(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	src := &localFile{File: f, path: path}
+	defer src.Close()
+	pr, err := newIndependentReader(src)
+	if err != nil {
+		t.Fatalf("xitongsys/parquet-go: %v", err)
+	}
+	if pr.GetNumRows() != 0 || len(pr.SchemaHandler.ValueColumns) != 4 {
+		t.Errorf("independent reader: %d rows, %d columns; want 0, 4", pr.GetNumRows(), len(pr.SchemaHandler.ValueColumns))
+	}
+	rows, schema, _, err := ReadFooter(path)
+	if err != nil || rows != 0 || !schema.Equal(mixedSchema) {
+		t.Errorf("ReadFooter: %d rows, %v, %v", rows, schema, err)
+	}
+}
+
+// TestHashFileErrors checks that HashFile names the path it failed on.
+func TestHashFileErrors(t *testing.T) {
+	dir := t.TempDir()
+	missing := filepath.Join(dir, "missing")
+	if _, _, err := HashFile(missing); !errors.Is(err, fs.ErrNotExist) || !strings.Contains(err.Error(), missing) {
+		t.Errorf("missing: %v", err)
+	}
+	if _, _, err := HashFile(dir); err == nil || !strings.HasPrefix(err.Error(), "read "+dir+": ") {
+		t.Errorf("folder: %v", err)
+	}
+	empty := filepath.Join(dir, "e")
+	if err := os.WriteFile(empty, nil, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	// SHA-256 of the empty string, FIPS 180-4 test vector (from memory).
+	if n, sum, err := HashFile(empty); err != nil || n != 0 || sum != "e3b0c44298fc1c149afbf4c8996fb92427ae41e4649b934ca495991b7852b855" {
+		t.Errorf("empty: %d %s %v", n, sum, err)
 	}
 }
