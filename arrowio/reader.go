@@ -94,7 +94,7 @@ func newReader(path string, f *os.File, mem memory.Allocator) (r *Reader, err er
 		return nil, err
 	}
 	schema = stripFieldIDs(schema)
-	footer, err := footerChecksum(f, pr.MetaData())
+	footer, err := footerChecksum(f)
 	if err != nil {
 		return nil, err
 	}
@@ -120,25 +120,31 @@ func classifyOpen(err error) error {
 	return &classified{ErrNotParquet, err}
 }
 
-// footerChecksum hashes the raw footer: the serialized FileMetaData, its
-// 4-byte little-endian length and the closing magic "PAR1" (Apache Parquet
-// format specification, "File format"). The footer was just read by the
-// Parquet reader, so this read is normally served from the page cache.
-func footerChecksum(f *os.File, md *metadata.FileMetaData) (string, error) {
+// footerChecksum hashes the raw footer: the serialized FileMetaData as
+// long as the stored length says, that 4-byte little-endian length and the
+// closing magic "PAR1" (Apache Parquet format specification, "File
+// format"). The Parquet reader has just read these bytes, so the two small
+// reads are normally served from the page cache.
+func footerChecksum(f *os.File) (string, error) {
 	st, err := f.Stat()
 	if err != nil {
 		return "", err
 	}
-	n := int64(md.Size()) + 8
-	if n > st.Size() {
-		return "", &classified{ErrNotParquet, errors.New("parquet: footer longer than file")}
+	size := st.Size()
+	var tail [8]byte
+	if size < int64(len(tail)) {
+		return "", &classified{ErrNotParquet, errors.New("parquet: file too small for a footer")}
 	}
-	buf := make([]byte, n)
-	if _, err := f.ReadAt(buf, st.Size()-n); err != nil {
+	if _, err := f.ReadAt(tail[:], size-8); err != nil {
 		return "", err
 	}
-	if string(buf[n-4:]) != "PAR1" || int64(binary.LittleEndian.Uint32(buf[n-8:])) != n-8 {
+	n := int64(binary.LittleEndian.Uint32(tail[:4])) + 8
+	if string(tail[4:]) != "PAR1" || n > size {
 		return "", &classified{ErrNotParquet, errors.New("parquet: footer changed while reading")}
+	}
+	buf := make([]byte, n)
+	if _, err := f.ReadAt(buf, size-n); err != nil {
+		return "", err
 	}
 	s := sha256.Sum256(buf)
 	return hex.EncodeToString(s[:]), nil

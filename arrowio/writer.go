@@ -205,8 +205,11 @@ func writeParquet(ctx context.Context, w io.Writer, schema *arrow.Schema, props 
 // if they disagree with what the writer counted.
 func checkWritten(path string, rows, n int64) {
 	st, err := os.Stat(path)
-	if err != nil || st.Size() != n {
-		panic(fmt.Sprintf("arrowio: wrote %d bytes to %s, stat says %v (%v)", n, path, st.Size(), err))
+	if err != nil {
+		panic(fmt.Sprintf("arrowio: committed %s but cannot stat it: %v", path, err))
+	}
+	if st.Size() != n {
+		panic(fmt.Sprintf("arrowio: wrote %d bytes to %s, stat says %d", n, path, st.Size()))
 	}
 	got, _, _, err := ReadFooter(path)
 	if err != nil || got != rows {
