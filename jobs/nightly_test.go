@@ -4,8 +4,11 @@ import (
 	"bufio"
 	"bytes"
 	"context"
+	"crypto/sha256"
+	"encoding/hex"
 	"encoding/json"
 	"errors"
+	"math"
 	"os"
 	"path/filepath"
 	"strings"
@@ -317,5 +320,162 @@ func TestNightlyFitFilter(t *testing.T) {
 	cfg.Fit, _ = ParseFit("split=valid")
 	if err := Run(context.Background(), cfg); err == nil || !strings.Contains(err.Error(), "split=valid") {
 		t.Fatalf("got %v, want an error naming the filter", err)
+	}
+}
+
+// apply with frozen parameters: values outside the fitted range are
+// counted per column and warned about, and the manifest names the
+// parameters' file and its SHA-256.
+func TestNightlyApplyFrozen(t *testing.T) {
+	tmp := t.TempDir()
+	day1, day2 := filepath.Join(tmp, "day1"), filepath.Join(tmp, "day2")
+	writeFloats(t, filepath.Join(day1, "d=1", "a.parquet"), 1, 2, 3, 4)
+	writeFloats(t, filepath.Join(day2, "d=2", "a.parquet"), -1, 0, 2, 5, 6, 7, math.NaN())
+	cfg := testConfig(t, day1, filepath.Join(tmp, "out1"), 1)
+	mustRun(t, cfg)
+	params := filepath.Join(cfg.Output, ManifestName)
+
+	cfg = testConfig(t, day2, filepath.Join(tmp, "out2"), 1)
+	cfg.ParamsPath = params
+	lines, err := logLines(t, cfg, Apply)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if w := count(t, lines, "summary", "warnings"); w != 1 {
+		t.Fatalf("summary warnings %d, want 1", w)
+	}
+	m := readManifestT(t, filepath.Join(cfg.Output, ManifestName))
+	raw, err := os.ReadFile(params)
+	if err != nil {
+		t.Fatal(err)
+	}
+	sum := sha256.Sum256(raw)
+	if m.ParamsSource == nil || m.ParamsSource.SHA256 != hex.EncodeToString(sum[:]) || m.ParamsSource.Path != filepath.ToSlash(params) {
+		t.Fatalf("params source %+v, want %s with sha256 %x", m.ParamsSource, params, sum)
+	}
+	c := m.Columns[0]
+	// Fitted on 1..4: -1 and 0 are below, 5, 6 and 7 above; NaN is neither.
+	if c.OutOfRange == nil || *c.OutOfRange != (manifests.OutOfRange{Below: 2, Above: 3}) {
+		t.Fatalf("out of range %+v, want 2 below and 3 above", c.OutOfRange)
+	}
+	if len(c.Warnings) != 1 || c.Warnings[0] != WarnOutsideFittedRange {
+		t.Fatalf("warnings %v", c.Warnings)
+	}
+	// The parameters are the frozen ones, bit for bit.
+	src := readManifestT(t, params)
+	if c.Params != src.Columns[0].Params {
+		t.Fatalf("params %+v, frozen %+v", c.Params, src.Columns[0].Params)
+	}
+}
+
+// A second run on an output whose lock is held fails at once, naming the
+// holder; two runs started together never both fail, and what commits
+// verifies.
+func TestNightlyLock(t *testing.T) {
+	tmp := t.TempDir()
+	lake := filepath.Join(tmp, "lake")
+	writeDemoFile(t, lake, demoRel(0, 0), 0, 0)
+	writeDemoFile(t, lake, demoRel(1, 0), 1, 0)
+	cfg := testConfig(t, lake, filepath.Join(tmp, "out"), 1)
+	cfg.Overwrite = true
+
+	held, _, err := arrowio.AcquireLock(filepath.Join(cfg.Output, lockName), cfg.Now())
+	if err != nil {
+		t.Fatal(err)
+	}
+	err = Run(context.Background(), cfg)
+	if !errors.Is(err, arrowio.ErrLocked) || !strings.Contains(err.Error(), "pid") {
+		t.Fatalf("got %v, want ErrLocked naming the holder", err)
+	}
+	if ok, _ := arrowio.Exists(filepath.Join(cfg.Output, ManifestName)); ok {
+		t.Fatal("a locked-out run committed")
+	}
+	held.Release()
+
+	errs := make(chan error, 2)
+	for range 2 {
+		go func() { errs <- Run(context.Background(), cfg) }()
+	}
+	ok := 0
+	for range 2 {
+		if err := <-errs; err == nil {
+			ok++
+		} else if !errors.Is(err, arrowio.ErrLocked) {
+			t.Fatalf("concurrent run: %v", err)
+		}
+	}
+	if ok == 0 {
+		t.Fatal("neither concurrent run committed")
+	}
+	var buf bytes.Buffer
+	if err := Verify(context.Background(), &buf, cfg.Output); err != nil {
+		t.Fatalf("%v\n%s", err, buf.String())
+	}
+	if ok, _ := arrowio.Exists(filepath.Join(cfg.Output, lockName)); ok {
+		t.Fatal("lock file left after the runs")
+	}
+}
+
+// The job file's [fit] section, and --fit replacing it.
+func TestNightlyFitJobFile(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "job.toml")
+	writeText(t, path, "input = \"lake\"\n[fit]\nwhere = [\"split=train\", \"day>=2026-01-01\"]\n")
+	cfg, err := Load(path, Overrides{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if got := cfg.settings().Fit; got != "split=train,day>=2026-01-01" {
+		t.Fatalf("fit %q", got)
+	}
+	flag := "site=a"
+	if cfg, err = Load(path, Overrides{Fit: &flag}); err != nil || cfg.Fit.String() != "site=a" {
+		t.Fatalf("--fit: %v, %v", cfg.Fit, err)
+	}
+	bad := "site"
+	if _, err := Load(path, Overrides{Fit: &bad}); !errors.Is(err, ErrUsage) {
+		t.Fatalf("bad --fit: %v, want a usage error", err)
+	}
+	writeText(t, path, "input = \"lake\"\n[fit]\nwhere = [\"split\"]\n")
+	if _, err := Load(path, Overrides{}); err == nil || errors.Is(err, ErrUsage) || !strings.Contains(err.Error(), path) {
+		t.Fatalf("bad [fit]: %v, want an error naming the job file", err)
+	}
+}
+
+// The metrics file is Prometheus text format: HELP and TYPE lines, then
+// one sample per metric with its labels.
+func TestNightlyMetrics(t *testing.T) {
+	tmp := t.TempDir()
+	lake := filepath.Join(tmp, "lake")
+	writeFloats(t, filepath.Join(lake, "a.parquet"), 1, 2, 3)
+	cfg := testConfig(t, lake, filepath.Join(tmp, "out\"x"), 1)
+	cfg.MetricsPath = filepath.Join(tmp, "lakescale.prom")
+	mustRun(t, cfg)
+	data, err := os.ReadFile(cfg.MetricsPath)
+	if err != nil {
+		t.Fatal(err)
+	}
+	text := string(data)
+	label := `{command="run",output="` + strings.ReplaceAll(cfg.Output, `"`, `\"`) + `"}`
+	// testConfig's clock stands at 2026-01-02T03:04:05Z, Unix time
+	// 1767323045 (date -u -d @1767323045); it does not move, so the
+	// duration is 0.
+	for _, want := range []string{
+		"# TYPE lakescale_last_success_timestamp_seconds gauge\nlakescale_last_success_timestamp_seconds" + label + " 1767323045\n",
+		"lakescale_last_run_rows" + label + " 3\n",
+		"lakescale_last_run_warnings" + label + " 0\n",
+		"lakescale_last_run_files_measured" + label + " 1\n",
+		"lakescale_last_run_duration_seconds" + label + " 0\n",
+	} {
+		if !strings.Contains(text, want) {
+			t.Errorf("metrics lack %q:\n%s", want, text)
+		}
+	}
+	// A failed run leaves the last success's file as it was.
+	cfg.Input = filepath.Join(tmp, "missing")
+	if err := Run(context.Background(), cfg); err == nil {
+		t.Fatal("run of a missing input succeeded")
+	}
+	if again, _ := os.ReadFile(cfg.MetricsPath); !bytes.Equal(again, data) {
+		t.Fatal("a failed run rewrote the metrics")
 	}
 }

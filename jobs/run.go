@@ -62,6 +62,7 @@ func Run(ctx context.Context, cfg Config) (err error) {
 	if err != nil {
 		return err
 	}
+	log.phase("fit", "columns", len(cols))
 	// The output is touched only once the statistics are known to be good.
 	if err := prepareOutput(&cfg); err != nil {
 		return err
@@ -113,6 +114,7 @@ func Measure(ctx context.Context, cfg Config) (err error) {
 	if err != nil {
 		return err
 	}
+	log.phase("fit", "columns", len(cols))
 	if err := p.saveCache(ctx, &cfg, results, log); err != nil {
 		return err
 	}

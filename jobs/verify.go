@@ -18,8 +18,13 @@ func Verify(ctx context.Context, w io.Writer, dir string) error {
 	if err != nil {
 		return err
 	}
-	if m.Kind != manifests.KindDataset {
-		return fmt.Errorf("%s: %w: kind %s, want %s", filepath.Join(dir, ManifestName), manifests.ErrInvalid, m.Kind, manifests.KindDataset)
+	key := manifests.MetadataKey
+	switch m.Kind {
+	case manifests.KindDataset:
+	case manifests.KindInverted:
+		key = InvertedMetadataKey
+	default:
+		return fmt.Errorf("%s: %w: kind %s, want %s or %s", filepath.Join(dir, ManifestName), manifests.ErrInvalid, m.Kind, manifests.KindDataset, manifests.KindInverted)
 	}
 	want := m.FileParams()
 	var problems []string
@@ -54,7 +59,7 @@ func Verify(ctx context.Context, w io.Writer, dir string) error {
 		if rows != o.Rows {
 			report("%s: %d rows, manifest says %d", o.Path, rows, o.Rows)
 		}
-		got, err := manifests.DecodeFileParams(meta[manifests.MetadataKey])
+		got, err := manifests.DecodeFileParams(meta[key])
 		if err != nil {
 			report("%s: embedded parameters: %v", o.Path, err)
 			continue

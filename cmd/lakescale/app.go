@@ -31,6 +31,16 @@ var (
 	infFlag     = &cli.StringFlag{Name: "on-infinity", Usage: "an infinite value in a selected column: error (default) or skip (count it, leave it out of the statistics)"}
 	statsFlag   = &cli.StringFlag{Name: "stats", Usage: "statistics `FILE` to write"}
 	paramsFlag  = &cli.StringFlag{Name: "params", Usage: "manifest or statistics `FILE` to take parameters from"}
+
+	fitFlag       = &cli.StringFlag{Name: "fit", Usage: "statistics from the inputs whose partitions match `FILTER` only, e.g. split=train or day>=2026-01-01 (conditions joined by ','; every input is still written)"}
+	cacheFlag     = &cli.StringFlag{Name: "cache", Usage: "statistics cache `DIR` (default OUTPUT/_cache for run, none for measure)"}
+	noCacheFlag   = &cli.BoolFlag{Name: "no-cache", Usage: "measure every file instead of reusing cached statistics (the cache is rewritten)"}
+	logFlag       = &cli.StringFlag{Name: "log-format", Usage: "log a line per phase and a summary on stderr, as `FORMAT` text or json"}
+	metricsFlag   = &cli.StringFlag{Name: "metrics", Usage: "after a success, write Prometheus text-format metrics to `FILE` (atomically)"}
+	jsonFlag      = &cli.BoolFlag{Name: "json", Usage: "write the report as JSON"}
+	failOverFlag  = &cli.Float64Flag{Name: "fail-over", Usage: "exit 1 when a column's mean moved by more than `X` old standard deviations"}
+	invertColFlag = &cli.StringSliceFlag{Name: "columns", Usage: "map back the columns matching `PATTERN,...` (default every column of the parameters)"}
+	columnFlag    = &cli.StringFlag{Name: "column", Usage: "map back the numbers on stdin (one per line) for column `NAME`"}
 )
 
 func newApp() *cli.App {
@@ -50,10 +60,12 @@ func newApp() *cli.App {
 		},
 		Commands: []*cli.Command{
 			{
-				Name:      "run",
-				Usage:     "measure exact statistics, then write scaled copies and a manifest",
-				UsageText: "lakescale run --input DIR --output DIR [--job FILE] [--columns PATTERN,...] [--method M] [--std sample|population] [--workers N] [--overwrite]",
-				Flags:     []cli.Flag{inputFlag, outputFlag, jobFlag, columnsFlag, excludeFlag, methodFlag, stdFlag, workersFlag, overFlag, compFlag, typeFlag, infFlag},
+				Name:  "run",
+				Usage: "measure exact statistics, then write scaled copies and a manifest",
+				UsageText: "lakescale run --input DIR --output DIR [--job FILE] [--columns PATTERN,...] [--method M] [--std sample|population] [--workers N] [--overwrite]\n" +
+					"    [--fit FILTER] [--cache DIR] [--no-cache] [--log-format text|json] [--metrics FILE]",
+				Flags: []cli.Flag{inputFlag, outputFlag, jobFlag, columnsFlag, excludeFlag, methodFlag, stdFlag, workersFlag, overFlag, compFlag, typeFlag, infFlag,
+					fitFlag, cacheFlag, noCacheFlag, logFlag, metricsFlag},
 				Action: func(c *cli.Context) error {
 					cfg, err := config(c)
 					if err != nil {
@@ -63,10 +75,12 @@ func newApp() *cli.App {
 				},
 			},
 			{
-				Name:      "measure",
-				Usage:     "pass one only: write the merged statistics (and fitted parameters) to a file",
-				UsageText: "lakescale measure --input DIR --stats FILE [--job FILE] [--columns PATTERN,...] [--method M] [--std sample|population] [--workers N]",
-				Flags:     []cli.Flag{inputFlag, statsFlag, jobFlag, columnsFlag, excludeFlag, methodFlag, stdFlag, workersFlag, infFlag},
+				Name:  "measure",
+				Usage: "pass one only: write the merged statistics (and fitted parameters) to a file",
+				UsageText: "lakescale measure --input DIR --stats FILE [--job FILE] [--columns PATTERN,...] [--method M] [--std sample|population] [--workers N]\n" +
+					"    [--fit FILTER] [--cache DIR] [--no-cache] [--log-format text|json] [--metrics FILE]",
+				Flags: []cli.Flag{inputFlag, statsFlag, jobFlag, columnsFlag, excludeFlag, methodFlag, stdFlag, workersFlag, infFlag,
+					fitFlag, cacheFlag, noCacheFlag, logFlag, metricsFlag},
 				Action: func(c *cli.Context) error {
 					cfg, err := config(c)
 					if err != nil {
@@ -79,8 +93,8 @@ func newApp() *cli.App {
 			{
 				Name:      "apply",
 				Usage:     "pass two only: write scaled copies with parameters from a manifest or statistics file",
-				UsageText: "lakescale apply --input DIR --output DIR --params FILE [--workers N] [--overwrite]",
-				Flags:     []cli.Flag{inputFlag, outputFlag, paramsFlag, jobFlag, workersFlag, overFlag, compFlag, typeFlag, infFlag},
+				UsageText: "lakescale apply --input DIR --output DIR --params FILE [--workers N] [--overwrite] [--log-format text|json] [--metrics FILE]",
+				Flags:     []cli.Flag{inputFlag, outputFlag, paramsFlag, jobFlag, workersFlag, overFlag, compFlag, typeFlag, infFlag, logFlag, metricsFlag},
 				Action: func(c *cli.Context) error {
 					cfg, err := config(c)
 					if err != nil {
@@ -131,6 +145,44 @@ func newApp() *cli.App {
 				},
 			},
 			{
+				Name:      "diff",
+				Usage:     "compare the column statistics of two manifests or statistics files (drift)",
+				UsageText: "lakescale diff [--json] [--fail-over X] OLD NEW",
+				Flags:     []cli.Flag{jsonFlag, failOverFlag},
+				Action: func(c *cli.Context) error {
+					if c.NArg() != 2 {
+						return usageError{fmt.Errorf("diff takes OLD and NEW (flags go before them), got %d arguments", c.NArg())}
+					}
+					opts := jobs.DiffOptions{JSON: c.Bool(jsonFlag.Name)}
+					if c.IsSet(failOverFlag.Name) {
+						x := c.Float64(failOverFlag.Name)
+						opts.FailOver = &x
+					}
+					return jobs.Diff(c.App.Writer, c.Args().Get(0), c.Args().Get(1), opts)
+				},
+			},
+			{
+				Name:  "invert",
+				Usage: "map scaled values back to original units: a dataset or file, or numbers on stdin",
+				UsageText: "lakescale invert --params FILE --input DIR|FILE --output DIR [--columns PATTERN,...] [--workers N] [--overwrite]\n" +
+					"lakescale invert --params FILE --column NAME < scaled.txt",
+				Flags: []cli.Flag{paramsFlag, inputFlag, outputFlag, invertColFlag, columnFlag, workersFlag, overFlag, compFlag, logFlag, metricsFlag},
+				Action: func(c *cli.Context) error {
+					if c.IsSet(columnFlag.Name) {
+						if c.IsSet(inputFlag.Name) || c.IsSet(outputFlag.Name) || c.IsSet(invertColFlag.Name) || c.NArg() > 0 {
+							return usageError{fmt.Errorf("--column maps numbers from stdin; it takes no --input, --output, --columns or arguments")}
+						}
+						return jobs.InvertValues(c.App.Reader, c.App.Writer, c.String(paramsFlag.Name), c.String(columnFlag.Name))
+					}
+					cfg, err := config(c)
+					if err != nil {
+						return err
+					}
+					cfg.ParamsPath = c.String(paramsFlag.Name)
+					return jobs.Invert(c.Context, cfg, c.StringSlice(invertColFlag.Name))
+				},
+			},
+			{
 				Name:  "version",
 				Usage: "print the program version",
 				Action: func(c *cli.Context) error {
@@ -171,7 +223,7 @@ func config(c *cli.Context) (jobs.Config, error) {
 	o := jobs.Overrides{
 		Input: str(inputFlag), Output: str(outputFlag), Method: str(methodFlag), Std: str(stdFlag),
 		Compression: str(compFlag), OutputType: str(typeFlag), OnInfinity: str(infFlag),
-		Overwrite: c.Bool(overFlag.Name),
+		Overwrite: c.Bool(overFlag.Name), Fit: str(fitFlag),
 	}
 	if c.IsSet(columnsFlag.Name) {
 		o.Columns = c.StringSlice(columnsFlag.Name)
@@ -187,6 +239,8 @@ func config(c *cli.Context) (jobs.Config, error) {
 	if err != nil {
 		return jobs.Config{}, err
 	}
-	cfg.Version, cfg.Out = version, c.App.Writer
+	cfg.Version, cfg.Out, cfg.Log = version, c.App.Writer, c.App.ErrWriter
+	cfg.CacheDir, cfg.NoCache = c.String(cacheFlag.Name), c.Bool(noCacheFlag.Name)
+	cfg.LogFormat, cfg.MetricsPath = c.String(logFlag.Name), c.String(metricsFlag.Name)
 	return cfg, nil
 }
