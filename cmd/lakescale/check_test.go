@@ -23,6 +23,7 @@ import (
 	"strconv"
 	"strings"
 
+	"github.com/apache/arrow/go/v17/arrow"
 	"github.com/rogpeppe/go-internal/testscript"
 	"github.com/xitongsys/parquet-go/parquet"
 	"github.com/xitongsys/parquet-go/reader"
@@ -107,7 +108,10 @@ func readPQ(path string) (pf *pqFile, err error) {
 		// file's own name is kept as ExName.
 		col := pqColumn{Name: pr.SchemaHandler.Infos[i+1].ExName, Physical: *el.Type,
 			Optional: el.RepetitionType != nil && *el.RepetitionType == parquet.FieldRepetitionType_OPTIONAL}
-		unsigned := el.ConvertedType != nil && *el.ConvertedType == parquet.ConvertedType_UINT_64
+		var conv parquet.ConvertedType = -1
+		if el.ConvertedType != nil {
+			conv = *el.ConvertedType
+		}
 		if pf.Rows > 0 {
 			vals, _, dls, err := pr.ReadColumnByIndex(int64(i), pf.Rows)
 			if err != nil {
@@ -120,8 +124,18 @@ func readPQ(path string) (pf *pqFile, err error) {
 				if col.Optional && dls[k] == 0 {
 					v = nil
 				}
-				if u, ok := v.(int64); ok && unsigned {
-					v = uint64(u)
+				// The reader returns the physical value: an unsigned
+				// integer is its bit pattern as a signed one.
+				switch u := v.(type) {
+				case int64:
+					if conv == parquet.ConvertedType_UINT_64 {
+						v = uint64(u)
+					}
+				case int32:
+					switch conv {
+					case parquet.ConvertedType_UINT_8, parquet.ConvertedType_UINT_16, parquet.ConvertedType_UINT_32:
+						v = uint64(uint32(u))
+					}
 				}
 				col.Values = append(col.Values, v)
 			}
@@ -203,23 +217,25 @@ type testManifest struct {
 			OutputType string `json:"output_type"`
 		} `json:"settings"`
 	} `json:"job"`
-	Columns []struct {
-		Name   string                     `json:"name"`
-		Type   string                     `json:"type"`
-		Method string                     `json:"method"`
-		Stats  map[string]json.RawMessage `json:"stats"`
-		Params struct {
-			Center json.Number `json:"center"`
-			Scale  json.Number `json:"scale"`
-		} `json:"params"`
-		Warnings   []string `json:"warnings"`
-		OutOfRange *struct {
-			Below uint64 `json:"below"`
-			Above uint64 `json:"above"`
-		} `json:"out_of_range"`
-	} `json:"columns"`
-	Inputs  []testEntry `json:"inputs"`
-	Outputs []testEntry `json:"outputs"`
+	Columns []testManifestColumn `json:"columns"`
+	Inputs  []testEntry          `json:"inputs"`
+	Outputs []testEntry          `json:"outputs"`
+}
+
+type testManifestColumn struct {
+	Name   string                     `json:"name"`
+	Type   string                     `json:"type"`
+	Method string                     `json:"method"`
+	Stats  map[string]json.RawMessage `json:"stats"`
+	Params struct {
+		Center json.Number `json:"center"`
+		Scale  json.Number `json:"scale"`
+	} `json:"params"`
+	Warnings   []string `json:"warnings"`
+	OutOfRange *struct {
+		Below uint64 `json:"below"`
+		Above uint64 `json:"above"`
+	} `json:"out_of_range"`
 }
 
 type testEntry struct {
@@ -402,6 +418,30 @@ func cmdCheckOutput(ts *testscript.TestScript, neg bool, args []string) {
 		ts.Check(err)
 		dst, err := readPQ(filepath.Join(out, filepath.FromSlash(o.Path)))
 		ts.Check(err)
+		// Logical types: the Arrow schema each footer stores, read with
+		// Arrow's pqarrow (Parquet physical types alone do not show a
+		// time zone, a dictionary or a large string).
+		srcSchema, err1 := arrowSchemaOf(filepath.Join(in, filepath.FromSlash(o.Path)))
+		dstSchema, err2 := arrowSchemaOf(filepath.Join(out, filepath.FromSlash(o.Path)))
+		ts.Check(errors.Join(err1, err2))
+		for _, f := range srcSchema.Fields() {
+			g, ok := dstSchema.FieldsByName(f.Name)
+			_, scaled := params[f.Name]
+			switch {
+			case !ok || len(g) != 1:
+				p.add("%s: output has no column %s", o.Path, f.Name)
+			case scaled:
+				want := arrow.DataType(arrow.PrimitiveTypes.Float64)
+				if float32Out {
+					want = arrow.PrimitiveTypes.Float32
+				}
+				if !arrow.TypeEqual(g[0].Type, want) || !g[0].Nullable {
+					p.add("%s: scaled column %s is %s nullable=%v, want nullable %s", o.Path, f.Name, g[0].Type, g[0].Nullable, want)
+				}
+			case !arrow.TypeEqual(g[0].Type, f.Type) || g[0].Nullable != f.Nullable:
+				p.add("%s: pass-through column %s is %s nullable=%v, input %s nullable=%v", o.Path, f.Name, g[0].Type, g[0].Nullable, f.Type, f.Nullable)
+			}
+		}
 		if src.Rows != dst.Rows || len(src.Columns) != len(dst.Columns) {
 			p.add("%s: %d rows, %d columns; input has %d rows, %d columns", o.Path, dst.Rows, len(dst.Columns), src.Rows, len(src.Columns))
 			continue

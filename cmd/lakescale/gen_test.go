@@ -250,7 +250,13 @@ func writeRecord(ts *testscript.TestScript, path string, schema *arrow.Schema, c
 	}
 	rec := b.NewRecord()
 	defer rec.Release()
-	_, err := arrowio.WriteParquetAtomic(context.Background(), path, schema,
+	writeArrowRecord(ts, path, rec, rowGroup)
+}
+
+// writeArrowRecord writes rec as one Snappy-compressed Parquet file with
+// row groups of at most rowGroup rows.
+func writeArrowRecord(ts *testscript.TestScript, path string, rec arrow.Record, rowGroup int64) {
+	_, err := arrowio.WriteParquetAtomic(context.Background(), path, rec.Schema(),
 		arrowio.WriteOptions{Compression: arrowio.Snappy, RowGroupRows: rowGroup},
 		func(w *pqarrow.FileWriter) error { return w.Write(rec) })
 	ts.Check(err)
@@ -385,7 +391,8 @@ func readNIST(path string) ([]float64, error) {
 	return ys, nil
 }
 
-// cmdCorrupt damages a file in place.
+// cmdCorrupt damages a file in place; FILE may be a glob pattern, which
+// must match at least one file, and then every match is damaged.
 //
 //	corrupt FILE truncate|garbage|append|flip
 //
@@ -396,20 +403,26 @@ func cmdCorrupt(ts *testscript.TestScript, neg bool, args []string) {
 	if len(args) != 2 {
 		ts.Fatalf("usage: corrupt FILE truncate|garbage|append|flip")
 	}
-	path := ts.MkAbs(args[0])
-	data, err := os.ReadFile(path)
+	paths, err := filepath.Glob(ts.MkAbs(args[0]))
 	ts.Check(err)
-	switch args[1] {
-	case "truncate":
-		data = data[:len(data)/2]
-	case "garbage":
-		data = bytes.Repeat([]byte("this is not a parquet file\n"), 40)
-	case "append":
-		data = append(data, "trailing junk"...)
-	case "flip":
-		data[len(data)/2] ^= 0xff
-	default:
-		ts.Fatalf("corrupt: unknown mode %q", args[1])
+	if len(paths) == 0 {
+		ts.Fatalf("corrupt: no file matches %s", args[0])
 	}
-	ts.Check(os.WriteFile(path, data, 0o644))
+	for _, path := range paths {
+		data, err := os.ReadFile(path)
+		ts.Check(err)
+		switch args[1] {
+		case "truncate":
+			data = data[:len(data)/2]
+		case "garbage":
+			data = bytes.Repeat([]byte("this is not a parquet file\n"), 40)
+		case "append":
+			data = append(data, "trailing junk"...)
+		case "flip":
+			data[len(data)/2] ^= 0xff
+		default:
+			ts.Fatalf("corrupt: unknown mode %q", args[1])
+		}
+		ts.Check(os.WriteFile(path, data, 0o644))
+	}
 }

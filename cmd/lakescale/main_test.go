@@ -37,6 +37,7 @@ var nistDir = func() string {
 //	gen-lake DIR [-sites a,b] [-days 1,2] [-parts N] [-rows N] [-rowgroup N] [-seed N]
 //	         [-inf REL] [-drop REL:COL] [-retype REL:COL] [-empty REL] [-set COL=VALUE]
 //	gen-nist NAME DIR PARTS
+//	gen-types DIR FILES ROWS
 //	check-output IN OUT
 //	check-stats IN MANIFEST
 //	col-stat OUT COLUMN min|max|absmax|range|mean|std WANT TOL
@@ -58,6 +59,7 @@ func TestScripts(t *testing.T) {
 		Cmds: map[string]func(ts *testscript.TestScript, neg bool, args []string){
 			"gen-lake":       cmdGenLake,
 			"gen-nist":       cmdGenNIST,
+			"gen-types":      cmdGenTypes,
 			"check-output":   cmdCheckOutput,
 			"check-stats":    cmdCheckStats,
 			"col-stat":       cmdColStat,
