@@ -48,7 +48,7 @@ var nistDir = func() string {
 //	cmp-tree A B
 //	corrupt FILE truncate|garbage|append|flip
 //	exitcode N PROG [ARGS...]
-//	interrupt INT|TERM|KILL WANT DIR PROG [ARGS...]
+//	interrupt INT|TERM|KILL WANT DIR|exists=PATH PROG [ARGS...]
 //	no-temps DIR
 //	lock FILE live|dead|foreign|garbage
 func TestScripts(t *testing.T) {

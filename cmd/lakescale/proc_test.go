@@ -55,15 +55,16 @@ func committedParquet(dir string) int {
 
 // cmdInterrupt starts PROG in the background, waits until its first output
 // file appears under DIR with its final name (so pass two is under way),
-// sends the signal and asserts how the program ended: WANT is an exit
-// status, or "killed" for death by the signal. The program's stdout and
-// stderr are kept for the stdout and stderr commands.
+// or with WHEN exists=PATH until PATH exists, sends the signal and asserts
+// how the program ended: WANT is an exit status, or "killed" for death by
+// the signal. The program's stdout and stderr are kept for the stdout and
+// stderr commands.
 //
-//	interrupt INT|TERM|KILL WANT DIR PROG [ARGS...]
+//	interrupt INT|TERM|KILL WANT DIR|exists=PATH PROG [ARGS...]
 func cmdInterrupt(ts *testscript.TestScript, neg bool, args []string) {
 	noNeg(ts, neg, "interrupt")
 	if len(args) < 4 {
-		ts.Fatalf("usage: interrupt INT|TERM|KILL WANT DIR PROG [ARGS...]")
+		ts.Fatalf("usage: interrupt INT|TERM|KILL WANT DIR|exists=PATH PROG [ARGS...]")
 	}
 	var sig os.Signal
 	switch args[0] {
@@ -76,7 +77,10 @@ func cmdInterrupt(ts *testscript.TestScript, neg bool, args []string) {
 	default:
 		ts.Fatalf("interrupt: unknown signal %q", args[0])
 	}
-	dir := ts.MkAbs(args[2])
+	ready := func() bool { return committedParquet(ts.MkAbs(args[2])) > 0 }
+	if path, ok := strings.CutPrefix(args[2], "exists="); ok {
+		ready = func() bool { return exists(ts.MkAbs(path)) }
+	}
 	prog, err := exec.LookPath(args[3]) // testscript put lakescale on this process's PATH
 	ts.Check(err)
 	cmd := exec.Command(prog, args[4:]...)
@@ -89,25 +93,24 @@ func cmdInterrupt(ts *testscript.TestScript, neg bool, args []string) {
 	go func() { done <- cmd.Wait() }()
 
 	deadline := time.After(60 * time.Second)
-	seen := 0
 poll:
 	for {
 		select {
 		case <-done:
-			ts.Fatalf("%s ended before any output appeared in %s\n[stdout]\n%s[stderr]\n%s", args[3], args[2], stdout.String(), stderr.String())
+			ts.Fatalf("%s ended before %s was ready\n[stdout]\n%s[stderr]\n%s", args[3], args[2], stdout.String(), stderr.String())
 		case <-deadline:
 			_ = cmd.Process.Kill()
 			<-done
-			ts.Fatalf("no output appeared in %s within 60s", args[2])
+			ts.Fatalf("%s was not ready within 60s", args[2])
 		case <-time.After(time.Millisecond):
-			if seen = committedParquet(dir); seen > 0 {
+			if ready() {
 				break poll
 			}
 		}
 	}
 	ts.Check(cmd.Process.Signal(sig))
 	<-done
-	ts.Logf("sent SIG%s after %d output files; %s", args[0], seen, cmd.ProcessState)
+	ts.Logf("sent SIG%s once %s was ready; %s", args[0], args[2], cmd.ProcessState)
 	ts.Stdout().Write([]byte(stdout.String()))
 	ts.Stderr().Write([]byte(stderr.String()))
 
