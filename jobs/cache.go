@@ -371,7 +371,7 @@ func (p *plan) reuse(cfg *Config, i int, r *arrowio.Reader) (res fileResult, don
 		if err != nil {
 			return fileResult{}, false, err
 		}
-		return fileResult{Rows: r.NumRows(), Bytes: size, SHA256: sum, Origin: origin{Source: sourceDescribed, Cache: state, Footer: footer}}, true, nil
+		return fileResult{Rows: r.NumRows(), Bytes: size, SHA256: sum, Origin: origin{Source: sourceDescribed, Footer: footer}}, true, nil
 	}
 	return fileResult{Origin: origin{Source: sourceMeasured, Cache: state, Footer: footer}}, false, nil
 }

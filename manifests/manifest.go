@@ -143,7 +143,8 @@ type Input struct {
 	Bytes     int64             `json:"bytes"`
 	SHA256    string            `json:"sha256"`
 	// Fit says whether the input's statistics went into the parameters;
-	// present only when job.settings.fit is set.
+	// present when this document's statistics were computed (run,
+	// measure) with a fit filter.
 	Fit *bool `json:"fit,omitempty"`
 }
 
