@@ -51,28 +51,36 @@ var nistDir = func() string {
 //	interrupt INT|TERM|KILL WANT DIR|exists=PATH PROG [ARGS...]
 //	no-temps DIR
 //	lock FILE live|dead|foreign|garbage
+//	check-inverted SCALED BACK [ORIG]
+//	check-invert-values MANIFEST COLUMN IN OUT
+//	check-diff OLD NEW REPORT
+//	json-lines FILE KEY=VALUE...
 func TestScripts(t *testing.T) {
 	testscript.Run(t, testscript.Params{
 		Dir:                 filepath.Join("testdata", "script"),
 		RequireExplicitExec: true,
 		UpdateScripts:       *update,
 		Cmds: map[string]func(ts *testscript.TestScript, neg bool, args []string){
-			"gen-lake":       cmdGenLake,
-			"gen-nist":       cmdGenNIST,
-			"gen-types":      cmdGenTypes,
-			"check-output":   cmdCheckOutput,
-			"check-stats":    cmdCheckStats,
-			"col-stat":       cmdColStat,
-			"manifest-field": cmdManifestField,
-			"manifest-lre":   cmdManifestLRE,
-			"sha256-of":      cmdSHA256Of,
-			"cmp-manifest":   cmdCmpManifest,
-			"cmp-tree":       cmdCmpTree,
-			"corrupt":        cmdCorrupt,
-			"exitcode":       cmdExitCode,
-			"interrupt":      cmdInterrupt,
-			"no-temps":       cmdNoTemps,
-			"lock":           cmdLock,
+			"gen-lake":            cmdGenLake,
+			"gen-nist":            cmdGenNIST,
+			"gen-types":           cmdGenTypes,
+			"check-output":        cmdCheckOutput,
+			"check-stats":         cmdCheckStats,
+			"col-stat":            cmdColStat,
+			"manifest-field":      cmdManifestField,
+			"manifest-lre":        cmdManifestLRE,
+			"sha256-of":           cmdSHA256Of,
+			"cmp-manifest":        cmdCmpManifest,
+			"cmp-tree":            cmdCmpTree,
+			"corrupt":             cmdCorrupt,
+			"exitcode":            cmdExitCode,
+			"interrupt":           cmdInterrupt,
+			"no-temps":            cmdNoTemps,
+			"lock":                cmdLock,
+			"check-inverted":      cmdCheckInverted,
+			"check-invert-values": cmdCheckInvertValues,
+			"check-diff":          cmdCheckDiff,
+			"json-lines":          cmdJSONLines,
 		},
 		Setup: func(env *testscript.Env) error {
 			// A fixed zone keeps any local-time rendering stable.
