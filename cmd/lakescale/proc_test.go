@@ -172,7 +172,11 @@ func cmdLock(ts *testscript.TestScript, neg bool, args []string) {
 	switch args[1] {
 	case "live":
 	case "dead":
-		cmd := exec.Command(os.Args[0], "-test.run=^$")
+		// A process that has exited: its pid is free (reuse within
+		// moments is vanishingly unlikely).
+		prog, err := exec.LookPath("lakescale")
+		ts.Check(err)
+		cmd := exec.Command(prog, "version")
 		ts.Check(cmd.Run())
 		pid = cmd.ProcessState.Pid()
 	case "foreign":
