@@ -2,6 +2,7 @@ package jobs
 
 import (
 	"fmt"
+	"io"
 	"regexp"
 	"strconv"
 	"strings"
@@ -302,4 +303,39 @@ func (p *plan) input(i int, r fileResult) manifests.Input {
 		in.Fit = &fit
 	}
 	return in
+}
+
+// showFit prints, for show, the fit filter and how many inputs it chose.
+func showFit(w io.Writer, m *manifests.Manifest) {
+	if m.Job.Settings.Fit == "" {
+		return
+	}
+	n, marked := 0, false
+	for _, in := range m.Inputs {
+		if in.Fit != nil {
+			marked = true
+			if *in.Fit {
+				n++
+			}
+		}
+	}
+	if marked {
+		fmt.Fprintf(w, "statistics from %d of %d inputs (fit %s)\n", n, len(m.Inputs), m.Job.Settings.Fit)
+	} else {
+		fmt.Fprintf(w, "parameters fitted on the inputs matching %s\n", m.Job.Settings.Fit)
+	}
+}
+
+// showOutside prints, for show, the columns with values outside the
+// fitted range.
+func showOutside(w io.Writer, m *manifests.Manifest) error {
+	for _, c := range m.Columns {
+		if o := c.OutOfRange; o != nil && o.Below+o.Above > 0 {
+			if _, err := fmt.Fprintf(w, "%s: %d values below the fitted min %s, %d above the fitted max %s\n",
+				c.Name, o.Below, num(c.Stats.Min), o.Above, num(c.Stats.Max)); err != nil {
+				return err
+			}
+		}
+	}
+	return nil
 }

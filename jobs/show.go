@@ -46,6 +46,7 @@ func Show(w io.Writer, path string) error {
 	if m.ParamsSource != nil {
 		fmt.Fprintf(w, "parameters from %s (%s, sha256 %s)\n", m.ParamsSource.Path, m.ParamsSource.Kind, m.ParamsSource.SHA256)
 	}
+	showFit(w, m)
 	fmt.Fprintln(w)
 	tw := tabwriter.NewWriter(w, 2, 4, 2, ' ', tabwriter.AlignRight)
 	fmt.Fprintln(tw, "column\ttype\tcount\tnulls\tmean\tstd\tmin\tmax\tmethod\tcenter\tscale\twarnings\t")
@@ -65,7 +66,10 @@ func Show(w io.Writer, path string) error {
 		fmt.Fprintf(tw, "%s\t%s\t%d\t%d\t%s\t%s%s\t%s\t%s\t%s\t%s\t%s\t%s\t\n", c.Name, c.Type, c.Stats.Count, c.Stats.Nulls,
 			num(c.Stats.Mean), num(std), label, num(c.Stats.Min), num(c.Stats.Max), method, num(c.Params.Center), num(c.Params.Scale), warns)
 	}
-	return tw.Flush()
+	if err := tw.Flush(); err != nil {
+		return err
+	}
+	return showOutside(w, m)
 }
 
 // num formats a statistic readably (7 significant digits); the manifest
