@@ -47,7 +47,7 @@ var nistDir = func() string {
 //	cmp-manifest [-fields a,b] [-ignore columns[].x,...] A B
 //	cmp-tree A B
 //	corrupt FILE truncate|garbage|append|flip
-//	exitcode N PROG [ARGS...]
+//	exitcode N|any PROG [ARGS...]
 //	interrupt INT|TERM|KILL WANT DIR|exists=PATH PROG [ARGS...]
 //	no-temps DIR
 //	lock FILE live|dead|foreign|garbage
