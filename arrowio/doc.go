@@ -4,8 +4,10 @@
 // folders), opens Parquet files for streaming reads of selected columns,
 // writes Parquet files and JSON documents atomically (temporary name
 // ".<name>.tmp-*" in the destination folder, fsync, rename, fsync of the
-// folder), hashes files, reads footers back for verification and removes
-// temporary files left by interrupted runs. Parquet outputs are
+// folder), hashes files, reads footers back for verification, removes
+// temporary files left by interrupted runs and takes exclusive lock files
+// (pid, host and start time; a stale lock of a dead local process is
+// taken over). Parquet outputs are
 // deterministic: the same records and options give the same bytes.
 //
 // Errors name the operation and the path, "op path: err", as *fs.PathError

@@ -2,13 +2,16 @@
 // job (job file plus flags), discovers the input dataset, selects columns,
 // runs pass one (exact statistics per file, merged) and pass two (scaled
 // copies) over one worker pool, and commits the result by writing the
-// manifest last. It also implements show, verify and the demo.
+// manifest last. It also implements show, verify, diff, invert and the
+// demo, the fit filter, the statistics cache and the output lock.
 //
 // It does not do arithmetic (package stats), define wire formats (package
 // manifests) or touch storage directly (package arrowio).
 //
 // Concurrency: each exported function runs one job to completion and is
-// safe to call from one goroutine at a time per output directory. Inside,
+// safe to call from one goroutine at a time per output directory (run,
+// apply and invert hold the output's lock file, so a second caller fails
+// at once rather than interleaving). Inside,
 // one errgroup sized by Config.Workers processes files; every task writes
 // only its own slot of a pre-sized results slice.
 package jobs
