@@ -110,7 +110,7 @@ func createExclusive(path string, content []byte) error {
 		err = cerr
 	}
 	if err != nil {
-		os.Remove(path)
+		_ = os.Remove(path) // the write's error is the one to report
 		return unwrapPath(err)
 	}
 	return nil

@@ -54,7 +54,9 @@ func TestLockExclusive(t *testing.T) {
 	if err != nil {
 		t.Fatalf("acquire after release: %v", err)
 	}
-	l.Release()
+	if err := l.Release(); err != nil {
+		t.Fatal(err)
+	}
 }
 
 // deadPID returns the pid of a process that has exited.
@@ -90,7 +92,7 @@ func TestLockStaleTakeover(t *testing.T) {
 	if err != nil {
 		t.Fatalf("stale lock of dead pid %d not taken over: %v", pid, err)
 	}
-	defer l.Release()
+	defer func() { _ = l.Release() }()
 	if stale == nil || stale.PID != pid {
 		t.Fatalf("stale holder %+v, want pid %d", stale, pid)
 	}
@@ -172,7 +174,9 @@ func TestLockRemovesCreatedFolders(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	l.Release()
+	if err := l.Release(); err != nil {
+		t.Fatal(err)
+	}
 	if _, err := os.Stat(root); err != nil {
 		t.Fatalf("existing folder removed: %v", err)
 	}

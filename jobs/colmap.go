@@ -91,10 +91,13 @@ func countOutside(arr arrow.Array, lo, hi float64) (below, above uint64) {
 func outsideOf[T int8 | int16 | int32 | int64 | uint8 | uint16 | uint32 | uint64 | float32 | float64](vals []T, arr arrow.Array, lo, hi float64) (below, above uint64) {
 	nulls := arr.NullN() > 0
 	for i, v := range vals {
-		x := float64(v)
-		if x < lo && !math.IsInf(x, -1) && !(nulls && arr.IsNull(i)) {
+		if nulls && arr.IsNull(i) {
+			continue
+		}
+		switch x := float64(v); {
+		case x < lo && !math.IsInf(x, -1):
 			below++
-		} else if x > hi && !math.IsInf(x, 1) && !(nulls && arr.IsNull(i)) {
+		case x > hi && !math.IsInf(x, 1):
 			above++
 		}
 	}

@@ -199,14 +199,17 @@ func finiteOrNull(x float64) manifests.Float {
 	return manifests.Float(x)
 }
 
+// writeDiffTable renders the report into memory (where writes cannot
+// fail) and writes it to w at once.
 func writeDiffTable(w io.Writer, rep diffReport) error {
-	fmt.Fprintf(w, "old: %s\nnew: %s\n", rep.Old, rep.New)
+	var b bytes.Buffer
+	fmt.Fprintf(&b, "old: %s\nnew: %s\n", rep.Old, rep.New)
 	if rep.FailOver != nil {
-		fmt.Fprintf(w, "fail over: |mean shift| > %s old standard deviations\n", strconv.FormatFloat(float64(*rep.FailOver), 'g', -1, 64))
+		fmt.Fprintf(&b, "fail over: |mean shift| > %s old standard deviations\n", strconv.FormatFloat(float64(*rep.FailOver), 'g', -1, 64))
 	}
-	fmt.Fprintln(w)
-	tw := tabwriter.NewWriter(w, 2, 4, 2, ' ', tabwriter.AlignRight)
-	fmt.Fprintln(tw, "column\tstatus\tmean shift (sd)\tstd ratio\told range\tnew range\toutside\tnull rate\t")
+	b.WriteByte('\n')
+	tw := tabwriter.NewWriter(&b, 2, 4, 2, ' ', tabwriter.AlignRight)
+	_, _ = fmt.Fprintln(tw, "column\tstatus\tmean shift (sd)\tstd ratio\told range\tnew range\toutside\tnull rate\t")
 	for _, c := range rep.Columns {
 		status := c.Status
 		switch {
@@ -236,15 +239,13 @@ func writeDiffTable(w io.Writer, rep diffReport) error {
 		if len(outside) == 0 {
 			outside = []string{"-"}
 		}
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t[%s, %s]\t[%s, %s]\t%s\t%s -> %s\t\n", c.Name, status, shift, num(c.StdRatio),
+		_, _ = fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t[%s, %s]\t[%s, %s]\t%s\t%s -> %s\t\n", c.Name, status, shift, num(c.StdRatio),
 			num(c.OldMin), num(c.OldMax), num(c.NewMin), num(c.NewMax), strings.Join(outside, ","), num(c.OldNullRate), num(c.NewNullRate))
 	}
-	if err := tw.Flush(); err != nil {
-		return err
-	}
+	_ = tw.Flush() // into b: cannot fail
 	if len(rep.Exceeded) > 0 {
-		_, err := fmt.Fprintf(w, "\nover the threshold: %s\n", strings.Join(rep.Exceeded, ", "))
-		return err
+		fmt.Fprintf(&b, "\nover the threshold: %s\n", strings.Join(rep.Exceeded, ", "))
 	}
-	return nil
+	_, err := w.Write(b.Bytes())
+	return err
 }

@@ -319,10 +319,11 @@ func showFit(w io.Writer, m *manifests.Manifest) {
 			}
 		}
 	}
+	// Like the rest of Show's header, errors surface at the table's Flush.
 	if marked {
-		fmt.Fprintf(w, "statistics from %d of %d inputs (fit %s)\n", n, len(m.Inputs), m.Job.Settings.Fit)
+		_, _ = fmt.Fprintf(w, "statistics from %d of %d inputs (fit %s)\n", n, len(m.Inputs), m.Job.Settings.Fit)
 	} else {
-		fmt.Fprintf(w, "parameters fitted on the inputs matching %s\n", m.Job.Settings.Fit)
+		_, _ = fmt.Fprintf(w, "parameters fitted on the inputs matching %s\n", m.Job.Settings.Fit)
 	}
 }
 

@@ -226,7 +226,7 @@ func InvertValues(r io.Reader, w io.Writer, paramsPath, column string) error {
 				return fmt.Errorf("stdin line %d: %q is not a number", line, text)
 			}
 			buf = strconv.AppendFloat(buf[:0], p.Inverse(y), 'g', -1, 64)
-			out.Write(buf)
+			_, _ = out.Write(buf) // a bufio.Writer keeps the error for WriteByte and Flush
 		}
 		if err := out.WriteByte('\n'); err != nil {
 			return err

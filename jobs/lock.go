@@ -27,7 +27,7 @@ func lockOutput(cfg *Config, log *runLog) (func(), error) {
 		return nil, err
 	}
 	if stale != nil {
-		fmt.Fprintf(cfg.Out, "took over the stale lock of pid %d on host %s (started %s), which no longer runs\n", stale.PID, stale.Host, stale.Started)
+		_, _ = fmt.Fprintf(cfg.Out, "took over the stale lock of pid %d on host %s (started %s), which no longer runs\n", stale.PID, stale.Host, stale.Started)
 		log.warn("took over a stale lock", "pid", stale.PID, "host", stale.Host, "started", stale.Started)
 	}
 	return func() { _ = l.Release() }, nil

@@ -390,7 +390,9 @@ func TestNightlyLock(t *testing.T) {
 	if ok, _ := arrowio.Exists(filepath.Join(cfg.Output, ManifestName)); ok {
 		t.Fatal("a locked-out run committed")
 	}
-	held.Release()
+	if err := held.Release(); err != nil {
+		t.Fatal(err)
+	}
 
 	errs := make(chan error, 2)
 	for range 2 {
