@@ -89,10 +89,7 @@ func Invert(ctx context.Context, cfg Config, columns []string) (err error) {
 		return err
 	}
 	log.passTwo(outs)
-	for _, o := range outs {
-		log.sum.Rows += o.In.Rows
-		log.sum.Bytes += o.In.Bytes
-	}
+	log.inputsOf(outs)
 	return p.commit(ctx, &cfg, m, outs, log)
 }
 

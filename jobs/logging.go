@@ -130,6 +130,15 @@ func (l *runLog) passTwo(outs []written) {
 	l.phase("pass_two", "files_written", s.FilesWritten, "bytes_written", s.BytesWritten)
 }
 
+// inputsOf counts the inputs' rows and bytes from pass two's results, for
+// commands without a pass one (apply, invert).
+func (l *runLog) inputsOf(outs []written) {
+	for _, o := range outs {
+		l.sum.Rows += o.In.Rows
+		l.sum.Bytes += o.In.Bytes
+	}
+}
+
 // done writes the summary line and, after a success, the metrics file.
 // It returns err, or the metrics error when err is nil.
 func (l *runLog) done(err error) error {

@@ -189,10 +189,7 @@ func Apply(ctx context.Context, cfg Config) (err error) {
 		return err
 	}
 	log.passTwo(outs)
-	for _, o := range outs {
-		log.sum.Rows += o.In.Rows
-		log.sum.Bytes += o.In.Bytes
-	}
+	log.inputsOf(outs)
 	return p.commit(ctx, &cfg, m, outs, log)
 }
 
