@@ -65,6 +65,11 @@ type Config struct {
 	LogFormat   string // "" (no log), "text" or "json": a line per phase and a summary on Log
 	MetricsPath string // Prometheus text file written after a successful run
 
+	// owned and ownAll say which stale Parquet files in the output tree a
+	// commit may remove (set by prepareOutput).
+	owned  map[string]bool
+	ownAll bool
+
 	Version string           // program version, recorded in the manifest
 	Now     func() time.Time // clock for created_at
 	Out     io.Writer        // human-readable progress and results

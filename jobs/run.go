@@ -362,8 +362,31 @@ func checkOutput(cfg *Config) error {
 	case !exists || len(has) == 0 || has[markerName]:
 	case has[ManifestName] && !cfg.Overwrite:
 		return fmt.Errorf("%w: %s holds a committed dataset (%s); give --overwrite to replace it", ErrOutputNotEmpty, cfg.Output, ManifestName)
-	case !has[ManifestName] && !cfg.Overwrite:
-		return fmt.Errorf("%w: %s holds files lakescale did not write; want an absent or empty directory, or --overwrite", ErrOutputNotEmpty, cfg.Output)
+	case !has[ManifestName]:
+		// Not a lakescale tree: never written into, even with --overwrite,
+		// so that no user file can be replaced or removed.
+		return fmt.Errorf("%w: %s holds files lakescale did not write; want an absent or empty directory, a lakescale output, or another output path", ErrOutputNotEmpty, cfg.Output)
+	}
+	return nil
+}
+
+// noteOwnedOutputs records which Parquet files in the output tree the
+// commit may remove when this run no longer writes them: those the old
+// manifest lists, or every one in an uncommitted tree (which lakescale
+// created empty).
+func noteOwnedOutputs(cfg *Config) error {
+	cfg.owned = map[string]bool{}
+	path := filepath.Join(cfg.Output, ManifestName)
+	if ok, err := arrowio.Exists(path); err != nil || !ok {
+		cfg.ownAll = err == nil
+		return err
+	}
+	old, _, err := readManifest(path)
+	if err != nil {
+		return fmt.Errorf("%w: %s: the dataset to be replaced has an unreadable manifest: %w", ErrOutputNotEmpty, cfg.Output, err)
+	}
+	for _, o := range old.Outputs {
+		cfg.owned[o.Path] = true
 	}
 	return nil
 }
@@ -372,6 +395,9 @@ func checkOutput(cfg *Config) error {
 // uncommitted and removes leftover temporary files.
 func prepareOutput(cfg *Config) error {
 	if err := checkOutput(cfg); err != nil {
+		return err
+	}
+	if err := noteOwnedOutputs(cfg); err != nil {
 		return err
 	}
 	if err := arrowio.MkdirAll(cfg.Output); err != nil {
@@ -419,7 +445,7 @@ func (p *plan) commit(ctx context.Context, cfg *Config, m *manifests.Manifest, o
 	}
 	if existing, err := arrowio.Discover(cfg.Output); err == nil {
 		for _, f := range existing {
-			if !want[f.Rel] {
+			if !want[f.Rel] && (cfg.ownAll || cfg.owned[f.Rel]) {
 				if err := arrowio.Remove(f.Abs); err != nil {
 					return err
 				}
