@@ -13,8 +13,9 @@
 //
 // copy writes through arrowio.WriteParquetAtomic with the options pass two
 // uses (zstd, 1 Mi-row row-group cap), so it has lakescale's writer
-// settings: dictionary encoding off for float columns, the zstd codec
-// that reuses encoders, a constant created_by, and the atomic write
+// settings: zstd level 1, dictionary encoding off for float columns, the
+// zstd codec that reuses encoders, a constant created_by, and the atomic
+// write
 // (SHA-256 while writing, fsync, rename). That makes the ratio "pass two
 // / write floor" measure exactly what scaling and lakescale's orchestration
 // add to a copy, and nothing the writer settings change.

@@ -6,7 +6,9 @@
 //	pass one      lakescale measure
 //	peer stats    DuckDB's statistics query alone (context for pass one)
 //	write floor   floors copy: read every column, re-write unchanged
-//	pass two      lakescale apply (pass two from a statistics file)
+//	pass two      lakescale apply (pass two from a statistics file; apply
+//	              also hashes each input and counts values outside the
+//	              fitted range, which run's pass two does not)
 //	full run      lakescale run
 //	peer          DuckDB: statistics, then COPY of the z-scored columns
 //
@@ -20,7 +22,9 @@
 // reader github.com/xitongsys/parquet-go.
 //
 // The lake stays in the page cache between jobs (the machine has far more
-// memory than the lake), so these are warm-cache, CPU-bound timings.
+// memory than the lake), so these are warm-cache, CPU-bound timings. Each
+// full run starts from an empty output folder, so its statistics cache
+// (OUTPUT/_cache) is cold: every file is measured.
 package main
 
 import (
