@@ -145,6 +145,22 @@ func readPQ(path string) (pf *pqFile, err error) {
 	return pf, nil
 }
 
+// forward is the scaling lakescale defines: the exact quotient
+// (x - center) / scale, computed here with math/big and rounded once to
+// the nearest float64 (big.Rat.Float64, ties to even, subnormals
+// included, an underflow to zero keeping the quotient's sign). NaN and
+// infinite x go through IEEE arithmetic (NaN stays NaN, ±Inf stays
+// infinite), and so does x == center: the zero has the sign IEEE 754
+// subtraction gives, -0 only for x = -0 and center = +0.
+func forward(x, center, scale float64) float64 {
+	if d := x - center; math.IsNaN(x) || math.IsInf(x, 0) || d == 0 {
+		return d / scale
+	}
+	r := new(big.Rat).Sub(new(big.Rat).SetFloat64(x), new(big.Rat).SetFloat64(center))
+	y, _ := r.Quo(r, new(big.Rat).SetFloat64(scale)).Float64()
+	return y
+}
+
 // asFloat64 converts an input value the way the scaling formula reads it:
 // float64(x).
 func asFloat64(v any) (float64, bool) {
@@ -370,9 +386,10 @@ func hiveUnescape(s string) string {
 // the files under IN and OUT (paths, sizes, SHA-256, rows, partitions),
 // then reads every output file with the independent reader and compares
 // it with the input file at the same relative path: a column the manifest
-// scales must hold (float64(x) - center) / scale, bit for bit (rounded
-// once to float32 when output_type is float32), with nulls null and NaN
-// NaN; every other column must be identical; the row order is kept. The
+// scales must hold the exact (float64(x) - center) / scale rounded once to
+// float64, bit for bit (see forward; then rounded to float32 when
+// output_type is float32), with nulls null and NaN NaN; every other column
+// must be identical; the row order is kept. The
 // parameters embedded in each output's footer must match the manifest,
 // and so must a column's out_of_range counts when the manifest has them.
 func cmdCheckOutput(ts *testscript.TestScript, neg bool, args []string) {
@@ -493,7 +510,7 @@ func cmdCheckOutput(ts *testscript.TestScript, neg bool, args []string) {
 						above[dc.Name]++
 					}
 				}
-				var want any = (fx - prm.center) / prm.scale
+				var want any = forward(fx, prm.center, prm.scale)
 				if float32Out {
 					want = float32(want.(float64))
 				}
@@ -503,7 +520,7 @@ func cmdCheckOutput(ts *testscript.TestScript, neg bool, args []string) {
 					continue // NaN stays NaN (the payload is not specified)
 				}
 				if !sameValue(want, y) {
-					p.add("%s: %s row %d: got %v (%T), want (%v - %v) / %v = %v", o.Path, dc.Name, k, y, y, fx, prm.center, prm.scale, want)
+					p.add("%s: %s row %d: got %v (%T), want RN((%v - %v) / %v) = %v", o.Path, dc.Name, k, y, y, fx, prm.center, prm.scale, want)
 				}
 			}
 		}
@@ -561,10 +578,14 @@ func sameNumber(a, b json.Number) bool {
 }
 
 // exactStats are a column's statistics computed exactly with math/big.
+// min and max follow the documented rule that -0 orders below +0 (a
+// big.Rat has no signed zero, so minNegZero and maxNegZero keep the sign
+// of an extreme that is zero).
 type exactStats struct {
 	rows, count, nulls, nans, posInf, negInf uint64
 	sum, sumSq                               *big.Rat
 	min, max                                 *big.Rat
+	minNegZero, maxNegZero                   bool
 }
 
 func (s *exactStats) add(v any) error {
@@ -600,11 +621,17 @@ func (s *exactStats) add(v any) error {
 	s.count++
 	s.sum.Add(s.sum, r)
 	s.sumSq.Add(s.sumSq, new(big.Rat).Mul(r, r))
-	if s.min == nil || r.Cmp(s.min) < 0 {
-		s.min = r
+	f, _ := asFloat64(v)
+	negZero := f == 0 && math.Signbit(f)
+	if s.min == nil {
+		s.min, s.minNegZero, s.max, s.maxNegZero = r, negZero, r, negZero
+		return nil
 	}
-	if s.max == nil || r.Cmp(s.max) > 0 {
-		s.max = r
+	if c := r.Cmp(s.min); c < 0 || c == 0 && negZero && !s.minNegZero {
+		s.min, s.minNegZero = r, negZero
+	}
+	if c := r.Cmp(s.max); c > 0 || c == 0 && !negZero && s.maxNegZero {
+		s.max, s.maxNegZero = r, negZero
 	}
 	return nil
 }
@@ -630,6 +657,12 @@ func (s *exactStats) floats() map[string]float64 {
 	out["mean"], _ = new(big.Rat).Quo(s.sum, n).Float64()
 	out["min"], _ = s.min.Float64()
 	out["max"], _ = s.max.Float64()
+	if s.minNegZero {
+		out["min"] = math.Copysign(0, -1)
+	}
+	if s.maxNegZero {
+		out["max"] = math.Copysign(0, -1)
+	}
 	// n*Q - S^2 over n^2 (population) or n(n-1) (sample).
 	num := new(big.Rat).Mul(n, s.sumSq)
 	num.Sub(num, new(big.Rat).Mul(s.sum, s.sum))

@@ -6,6 +6,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"math"
+	"math/big"
 	"os"
 	"path/filepath"
 	"strconv"
@@ -14,20 +15,25 @@ import (
 	"github.com/rogpeppe/go-internal/testscript"
 )
 
-// inverse is the documented map back to original units, y*scale + center,
-// with the product rounded to float64 before the addition (the explicit
-// conversion forbids fusing them into one FMA).
+// inverse is the map back to original units lakescale defines: the exact
+// y*scale + center rounded once to the nearest float64, computed here with
+// math/big. NaN and infinite y go through IEEE arithmetic.
 func inverse(y, center, scale float64) float64 {
-	return float64(y*scale) + center
+	if math.IsNaN(y) || math.IsInf(y, 0) {
+		return y*scale + center
+	}
+	r := new(big.Rat).Mul(new(big.Rat).SetFloat64(y), new(big.Rat).SetFloat64(scale))
+	x, _ := r.Add(r, new(big.Rat).SetFloat64(center)).Float64()
+	return x
 }
 
 // cmdCheckInverted checks a dataset written by invert against the scaled
 // dataset it was made from: the manifest (kind inverted) lists the scaled
 // files as inputs and the written files as outputs; each mapped-back
-// column holds float64(y*scale) + center bit for bit (nulls null, NaN
-// NaN) and, with ORIG, lies within 1e-12 (relative to max(|x|, |center|))
-// of the original value; every other column is identical to the scaled
-// file's.
+// column holds y*scale + center rounded once (inverse), bit for bit
+// (nulls null, NaN NaN) and, with ORIG, lies within 1e-12 (relative to
+// max(|x|, |center|)) of the original value; every other column is
+// identical to the scaled file's.
 //
 //	check-inverted SCALED BACK [ORIG]
 func cmdCheckInverted(ts *testscript.TestScript, neg bool, args []string) {
@@ -100,7 +106,7 @@ func cmdCheckInverted(ts *testscript.TestScript, neg bool, args []string) {
 					p.add("%s: %s row %d: %v (%T), want float64", o.Path, dc.Name, k, x, x)
 				case math.IsNaN(want) && math.IsNaN(got):
 				case math.Float64bits(got) != math.Float64bits(want):
-					p.add("%s: %s row %d: %v, want %v * %v + %v = %v", o.Path, dc.Name, k, got, fy, prm.scale, prm.center, want)
+					p.add("%s: %s row %d: %v, want RN(%v * %v + %v) = %v", o.Path, dc.Name, k, got, fy, prm.scale, prm.center, want)
 				case orig != nil && !math.IsNaN(want) && !math.IsInf(want, 0):
 					ox, _ := asFloat64(orig.column(dc.Name).Values[k])
 					if d := math.Abs(got - ox); d > 1e-12*max(math.Abs(ox), math.Abs(prm.center)) {
@@ -126,9 +132,9 @@ func keysOf(m map[string]string) []string {
 }
 
 // cmdCheckInvertValues checks invert --column output: line by line, a
-// blank input line gives a blank line and a number y gives float64(y*scale)
-// + center of COLUMN in MANIFEST, written so that it parses back to the
-// same float64.
+// blank input line gives a blank line and a number y gives y*scale +
+// center rounded once (inverse) for COLUMN in MANIFEST, written so that it
+// parses back to the same float64.
 //
 //	check-invert-values MANIFEST COLUMN IN OUT
 func cmdCheckInvertValues(ts *testscript.TestScript, neg bool, args []string) {
