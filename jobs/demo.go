@@ -86,7 +86,7 @@ func demoRecord(site, day int) arrow.Record {
 	start := int64(1772323200) + int64(day)*86400 // 2026-03-01T00:00:00Z
 	meanWind := 6.5 + 2.5*float64(site)
 	for t := range 12 {
-		var counter int64 = int64(t+1) * 1_000_000_000 // invented lifetime energy, Wh
+		counter := int64(t+1) * 1_000_000_000 // invented lifetime energy, Wh
 		for i := range demoRowsPerFile / 12 {
 			ids.Append(fmt.Sprintf("%s-%02d", demoSites[site][:2], t+1))
 			ts.Append(start + int64(i)*60*int64(12))

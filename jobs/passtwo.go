@@ -45,7 +45,7 @@ func passTwo(ctx context.Context, cfg *Config, p *plan, params []stats.Params, m
 // outputSchema replaces each selected column by a nullable float column.
 func outputSchema(in *arrow.Schema, idx []int, float32Out bool) *arrow.Schema {
 	fields := append([]arrow.Field(nil), in.Fields()...)
-	var t arrow.DataType = arrow.PrimitiveTypes.Float64
+	t := arrow.DataType(arrow.PrimitiveTypes.Float64)
 	if float32Out {
 		t = arrow.PrimitiveTypes.Float32
 	}
