@@ -82,7 +82,7 @@ func writeAtomic(path string, write func(io.Writer) error) (n int64, sum string,
 			return
 		}
 		if !closed {
-			f.Close()
+			_ = f.Close() // cleanup after an earlier error, which is the one returned
 		}
 		os.Remove(tmp)
 	}()

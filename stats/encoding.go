@@ -145,31 +145,31 @@ func readInt(b []byte, x *big.Int, what string) ([]byte, error) {
 
 // validate checks that a decoded state is one that values could produce,
 // so Summary never meets, say, a negative n·Q - S².
-func (d *Accumulator) validate() error {
-	if _, ok := d.rows(); !ok {
+func (a *Accumulator) validate() error {
+	if _, ok := a.rows(); !ok {
 		return fmt.Errorf("row count overflows uint64")
 	}
-	if d.n == 0 {
-		if d.minKey != math.MaxUint64 || d.maxKey != 0 || d.s.Sign() != 0 || d.q.Sign() != 0 {
+	if a.n == 0 {
+		if a.minKey != math.MaxUint64 || a.maxKey != 0 || a.s.Sign() != 0 || a.q.Sign() != 0 {
 			return fmt.Errorf("no finite values but non-empty moments or extremes")
 		}
 		return nil
 	}
-	if d.minKey > d.maxKey {
+	if a.minKey > a.maxKey {
 		return fmt.Errorf("min above max")
 	}
-	if d.n == 1 && d.minKey != d.maxKey {
+	if a.n == 1 && a.minKey != a.maxKey {
 		return fmt.Errorf("one value but min differs from max")
 	}
-	lo, ok1 := d.keyScaled(d.minKey)
-	hi, ok2 := d.keyScaled(d.maxKey)
+	lo, ok1 := a.keyScaled(a.minKey)
+	hi, ok2 := a.keyScaled(a.maxKey)
 	if !ok1 || !ok2 {
 		return fmt.Errorf("min or max is not finite")
 	}
-	n := new(big.Int).SetUint64(d.n)
+	n := new(big.Int).SetUint64(a.n)
 	t := new(big.Int)
 	// n·min ≤ S ≤ n·max.
-	if d.s.Cmp(t.Mul(n, lo)) < 0 || d.s.Cmp(t.Mul(n, hi)) > 0 {
+	if a.s.Cmp(t.Mul(n, lo)) < 0 || a.s.Cmp(t.Mul(n, hi)) > 0 {
 		return fmt.Errorf("sum outside n·[min, max]")
 	}
 	// n·(min |x| on [min, max])² ≤ Q ≤ n·max(min², max²).
@@ -184,15 +184,15 @@ func (d *Accumulator) validate() error {
 	case hi.Sign() <= 0:
 		lower = hiSq
 	}
-	if d.q.Cmp(t.Mul(n, upper)) > 0 || d.q.Cmp(t.Mul(n, lower)) < 0 {
+	if a.q.Cmp(t.Mul(n, upper)) > 0 || a.q.Cmp(t.Mul(n, lower)) < 0 {
 		return fmt.Errorf("sum of squares outside n·[min x², max x²]")
 	}
 	// Cauchy–Schwarz: S² ≤ n·Q.
-	if new(big.Int).Mul(&d.s, &d.s).Cmp(t.Mul(n, &d.q)) > 0 {
+	if new(big.Int).Mul(&a.s, &a.s).Cmp(t.Mul(n, &a.q)) > 0 {
 		return fmt.Errorf("sum squared exceeds n times the sum of squares")
 	}
-	if d.n == 2 { // both values are known: they are min and max
-		if d.s.Cmp(t.Add(lo, hi)) != 0 || d.q.Cmp(t.Add(loSq, hiSq)) != 0 {
+	if a.n == 2 { // both values are known: they are min and max
+		if a.s.Cmp(t.Add(lo, hi)) != 0 || a.q.Cmp(t.Add(loSq, hiSq)) != 0 {
 			return fmt.Errorf("two values but sums differ from min and max")
 		}
 	}
@@ -201,8 +201,8 @@ func (d *Accumulator) validate() error {
 
 // keyScaled returns the value behind a key as an integer at the kind's
 // scale, and false for a key that is no finite float64.
-func (d *Accumulator) keyScaled(k uint64) (*big.Int, bool) {
-	switch d.kind {
+func (a *Accumulator) keyScaled(k uint64) (*big.Int, bool) {
+	switch a.kind {
 	case KindSigned:
 		return big.NewInt(keySigned(k)), true
 	case KindUnsigned:
