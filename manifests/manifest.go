@@ -7,7 +7,9 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"path"
 	"strconv"
+	"strings"
 )
 
 // Version is the manifest_version this build writes and the newest it reads.
@@ -242,6 +244,16 @@ func (m *Manifest) Validate() error {
 	if m.Kind != KindDataset && m.Kind != KindStatistics && m.Kind != KindInverted {
 		return fmt.Errorf("%w: kind %q, want %q, %q or %q", ErrInvalid, m.Kind, KindDataset, KindStatistics, KindInverted)
 	}
+	for _, in := range m.Inputs {
+		if err := checkRelPath(in.Path); err != nil {
+			return fmt.Errorf("%w: input %w", ErrInvalid, err)
+		}
+	}
+	for _, out := range m.Outputs {
+		if err := checkRelPath(out.Path); err != nil {
+			return fmt.Errorf("%w: output %w", ErrInvalid, err)
+		}
+	}
 	seen := make(map[string]bool, len(m.Columns))
 	for i, c := range m.Columns {
 		if c.Name == "" {
@@ -268,6 +280,15 @@ func (m *Manifest) Column(name string) *Column {
 		if m.Columns[i].Name == name {
 			return &m.Columns[i]
 		}
+	}
+	return nil
+}
+
+// checkRelPath accepts only clean, slash-separated paths inside the
+// dataset, so that no manifest can point a reader at other files.
+func checkRelPath(p string) error {
+	if p == "" || path.IsAbs(p) || path.Clean(p) != p || p == ".." || strings.HasPrefix(p, "../") || strings.Contains(p, `\`) {
+		return fmt.Errorf("path %q: want a clean relative path inside the dataset", p)
 	}
 	return nil
 }

@@ -119,6 +119,8 @@ func TestDecodeRejects(t *testing.T) {
 		"zero scale":      strings.Replace(good, `"scale": 2.5e-310`, `"scale": 0`, 1),
 		"rows mismatch":   strings.Replace(good, `"rows": 5,`+"\n        \"count\"", `"rows": 6,`+"\n        \"count\"", 1),
 		"not json at all": "PAR1",
+		"escaping path":   strings.Replace(good, `"path": "site=a/day=1/part-0.parquet",`+"\n      \"rows\": 5,\n      \"bytes\": 2345", `"path": "../secret.parquet",`+"\n      \"rows\": 5,\n      \"bytes\": 2345", 1),
+		"absolute path":   strings.Replace(good, `"path": "site=a/day=1/part-0.parquet",`+"\n      \"partition\"", `"path": "/etc/passwd",`+"\n      \"partition\"", 1),
 	}
 	for name, doc := range cases {
 		if doc == good {
