@@ -159,7 +159,11 @@ func (p Params) Validate() error {
 //     Center = Min - a*Scale, each evaluated exactly on the float64 inputs
 //     (math/big) and rounded once to nearest, ties to even. For [0, 1] this
 //     gives Center == Min and Scale == Max - Min rounded once, so
-//     Forward(Min) == 0 and Forward(Max) == 1 exactly.
+//     Forward(Min) == 0 exactly, and Forward(Max) == 1 exactly whenever
+//     Max - Min is a float64 (for example when Min and Max have the same
+//     sign and lie within a factor 2 of each other, or are integers below
+//     2^52 in magnitude); otherwise Forward(Max), the correctly rounded
+//     (Max - Min) / RN(Max - Min), is 1 or 1 - 2^-53, never above 1.
 //   - meannorm: Center = Mean, Scale = Max - Min (one IEEE 754 subtraction,
 //     rounded once).
 //   - maxabs: Center = 0, Scale = max(|Min|, |Max|).
@@ -312,27 +316,40 @@ func fitRangeCheck(p Params, s Summary) error {
 	return nil
 }
 
-// Forward scales one value: (x - Center) / Scale. A subtraction and a
-// division cannot be fused into one operation, so the result has the same
-// bits on every platform. NaN stays NaN; ±Inf map through the formula;
-// x == Center gives +0.
+// Forward scales one value: (x - Center) / Scale evaluated exactly and
+// rounded once to the nearest float64, ties to even (roundTiesToEven,
+// IEEE 754-2019 section 4.3.1), with gradual underflow, also when
+// x - Center is not a float64 or overflows. A correctly rounded result is
+// unique, so Forward has the same bits on every CPU whatever a target does
+// with intermediate steps; and unlike the two roundings of
+// float64(x-Center) / Scale it lets Inverse bring x back within
+// ulp(x) + ulp(Center) (see Inverse).
 //
-// Pass x as a rounded float64 (a variable, a loaded value or an explicit
-// float64(...) conversion): once Forward is inlined, the Go specification
-// allows an argument written as a product, Forward(a*b), to be fused with
-// the subtraction.
-func (p Params) Forward(x float64) float64 { return (x - p.Center) / p.Scale }
+// NaN stays NaN; ±Inf map to ±Inf; x == Center gives +0 (-0 for x = -0
+// and Center = +0, as IEEE 754 subtraction gives). With a
+// non-finite Center or a zero, infinite or NaN Scale (Params that fail
+// Validate), Forward returns float64(x-Center) / Scale.
+//
+// Transform applies the same computation (tfForward) to whole arrays;
+// Forward is its one-value case, so the two agree bit for bit.
+func (p Params) Forward(x float64) float64 {
+	var y [1]float64
+	tfForward(y[:], []float64{x}, p.Center, p.Scale)
+	return y[0]
+}
 
-// Inverse maps a scaled value back to original units: y*Scale + Center.
+// Inverse maps a scaled value back to original units: y*Scale + Center
+// with a single rounding, math.FMA(y, Scale, Center). math.FMA is
+// specified as one correctly rounded operation whether the CPU has a fused
+// multiply-add instruction or Go falls back to its software
+// implementation, so Inverse has the same bits on every platform (a plain
+// y*Scale + Center would not: the Go specification lets the compiler fuse
+// it on some targets and not on others).
 //
-// The Go specification (Arithmetic operators, floating-point operators)
-// lets an implementation fuse x*y + z into one operation with a single
-// rounding, which the compiler does for GOARCH=arm64 and for amd64 with
-// GOAMD64=v3, but an explicit conversion to a floating-point type forces the
-// product to be rounded first. The conversion below is what keeps Inverse
-// bit-identical across CPUs; do not remove it. As for Forward, pass y (and
-// build Params) from rounded values, not from unconverted products.
-func (p Params) Inverse(y float64) float64 { return float64(y*p.Scale) + p.Center }
+// With Forward correctly rounded, Inverse(Forward(x)) is within
+// ulp(x) + ulp(Center) of x whenever Forward(x) is a normal float64 (see
+// TestRoundTrip for the argument and the subnormal case).
+func (p Params) Inverse(y float64) float64 { return math.FMA(y, p.Scale, p.Center) }
 
 // Transform scales a numeric array into a new float64 array (float32 when
 // asFloat32), allocated from mem. Nulls stay null, NaN stays NaN.

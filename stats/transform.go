@@ -2,6 +2,8 @@ package stats
 
 import (
 	"fmt"
+	"math"
+	"math/big"
 
 	"github.com/apache/arrow/go/v17/arrow"
 	"github.com/apache/arrow/go/v17/arrow/array"
@@ -52,25 +54,25 @@ func tfTransform(mem memory.Allocator, arr arrow.Array, p Params, asFloat32 bool
 		dst := arrow.Float32Traits.CastFromBytes(values.Bytes())
 		switch a := arr.(type) {
 		case *array.Int8:
-			tfForward32(dst, a.Int8Values(), c, s)
+			tfForward(dst, a.Int8Values(), c, s)
 		case *array.Int16:
-			tfForward32(dst, a.Int16Values(), c, s)
+			tfForward(dst, a.Int16Values(), c, s)
 		case *array.Int32:
-			tfForward32(dst, a.Int32Values(), c, s)
+			tfForward(dst, a.Int32Values(), c, s)
 		case *array.Int64:
-			tfForward32(dst, a.Int64Values(), c, s)
+			tfForward(dst, a.Int64Values(), c, s)
 		case *array.Uint8:
-			tfForward32(dst, a.Uint8Values(), c, s)
+			tfForward(dst, a.Uint8Values(), c, s)
 		case *array.Uint16:
-			tfForward32(dst, a.Uint16Values(), c, s)
+			tfForward(dst, a.Uint16Values(), c, s)
 		case *array.Uint32:
-			tfForward32(dst, a.Uint32Values(), c, s)
+			tfForward(dst, a.Uint32Values(), c, s)
 		case *array.Uint64:
-			tfForward32(dst, a.Uint64Values(), c, s)
+			tfForward(dst, a.Uint64Values(), c, s)
 		case *array.Float32:
-			tfForward32(dst, a.Float32Values(), c, s)
+			tfForward(dst, a.Float32Values(), c, s)
 		case *array.Float64:
-			tfForward32(dst, a.Float64Values(), c, s)
+			tfForward(dst, a.Float64Values(), c, s)
 		}
 		return tfFinish(mem, arr, arrow.PrimitiveTypes.Float32, values), nil
 	}
@@ -78,25 +80,25 @@ func tfTransform(mem memory.Allocator, arr arrow.Array, p Params, asFloat32 bool
 	dst := arrow.Float64Traits.CastFromBytes(values.Bytes())
 	switch a := arr.(type) {
 	case *array.Int8:
-		tfForward64(dst, a.Int8Values(), c, s)
+		tfForward(dst, a.Int8Values(), c, s)
 	case *array.Int16:
-		tfForward64(dst, a.Int16Values(), c, s)
+		tfForward(dst, a.Int16Values(), c, s)
 	case *array.Int32:
-		tfForward64(dst, a.Int32Values(), c, s)
+		tfForward(dst, a.Int32Values(), c, s)
 	case *array.Int64:
-		tfForward64(dst, a.Int64Values(), c, s)
+		tfForward(dst, a.Int64Values(), c, s)
 	case *array.Uint8:
-		tfForward64(dst, a.Uint8Values(), c, s)
+		tfForward(dst, a.Uint8Values(), c, s)
 	case *array.Uint16:
-		tfForward64(dst, a.Uint16Values(), c, s)
+		tfForward(dst, a.Uint16Values(), c, s)
 	case *array.Uint32:
-		tfForward64(dst, a.Uint32Values(), c, s)
+		tfForward(dst, a.Uint32Values(), c, s)
 	case *array.Uint64:
-		tfForward64(dst, a.Uint64Values(), c, s)
+		tfForward(dst, a.Uint64Values(), c, s)
 	case *array.Float32:
-		tfForward64(dst, a.Float32Values(), c, s)
+		tfForward(dst, a.Float32Values(), c, s)
 	case *array.Float64:
-		tfForward64(dst, a.Float64Values(), c, s)
+		tfForward(dst, a.Float64Values(), c, s)
 	}
 	return tfFinish(mem, arr, arrow.PrimitiveTypes.Float64, values), nil
 }
@@ -113,11 +115,6 @@ func tfScalable(arr arrow.Array) bool {
 	return false
 }
 
-// The loops below and Params.Forward/Inverse were checked with
-// go build -gcflags=-S for GOAMD64=v3 and for GOARCH=arm64 (Go 1.26): no
-// fused multiply-add instruction (VFMADD*, FMADDD and relatives) appears.
-// A plain x*y + z compiles to one on both targets.
-
 // tfNumber is every element type Transform reads. Each instantiation below
 // gets its own machine code (one GC shape per basic type), so the loops
 // carry no interface or dictionary call per value.
@@ -127,30 +124,127 @@ type tfNumber interface {
 		~float32 | ~float64
 }
 
-// tfForward64 writes Forward(float64(src[i])) into dst[i].
-func tfForward64[T tfNumber](dst []float64, src []T, c, s float64) {
+// Bounds of the fast path of tfForward (see there).
+const (
+	tfHiMin = 0x1p-966 // |x - c| at least this: the division remainder is exact
+	tfQMin  = 0x1p-922 // |q| at least this: q, q*2^-100 and the correction are normal
+)
+
+// tfForward writes Forward(float64(src[i])) into dst[i]: the exact
+// (x - c) / s rounded once to float64, and then, for a float32 dst, rounded
+// once more from that float64 to float32. Params.Forward is its one-value
+// case.
+//
+// The fast path, for |q| in [2^-922, MaxFloat64] and |x - c| >= 2^-966
+// (u = 2^-53, fl an IEEE 754 operation rounded to nearest):
+//
+//  1. hi + lo = x - c exactly: hi = fl(x - c) and lo its rounding error by
+//     TwoSum, six additions and no branch (Knuth, TAOCP vol. 2, 3rd ed.,
+//     section 4.2.2, Theorem B; from memory). It is exact when hi is
+//     finite, and its other additions cannot overflow then (Boldo,
+//     Graillat and Muller, "On the robustness of the 2Sum and Fast2Sum
+//     algorithms", ACM TOMS 44(1), 2017; from memory);
+//     TestTransformCorrectlyRounded probes values near MaxFloat64.
+//  2. q = fl(hi / s), and r = hi - q*s exactly with one math.FMA: the
+//     remainder of a quotient rounded to nearest is a float64 unless it
+//     underflows (Boldo and Daumas, "Representable correcting terms for
+//     possibly underflowing floating point operations", ARITH 16, 2003;
+//     from memory), and |hi| >= 2^-966 keeps it clear of underflow.
+//  3. The exact quotient is q + d with d = (r + lo) / s, |d| < 1.5 ulp(q).
+//     corr = fl(fl(r + lo) / s) has |corr - d| <= (2u + u^2)|d| + 2^-1075,
+//     below 2^-103 |q| (the standard model of floating-point arithmetic:
+//     Higham, Accuracy and Stability of Numerical Algorithms, 2nd ed.,
+//     section 2.2).
+//  4. Rounding test, after Ziv (ACM TOMS 17(3), 1991; from memory): with
+//     b = |q| 2^-100, fl(corr - b) <= d <= fl(corr + b), and rounding to
+//     nearest is monotone, so when fl(q + fl(corr - b)) equals
+//     fl(q + fl(corr + b)) that value is RN(q + d), the correctly rounded
+//     quotient. Otherwise a rounding boundary lies within 2^-46 ulp(q) of
+//     the exact quotient and the slow path decides (exact midpoints always
+//     get there).
+//
+// Everything else (zero, NaN, infinities, an overflowing x - c, tiny or
+// huge quotients, undecided rounding) goes to tfForwardSlow. The explicit
+// float64 conversions forbid the compiler to fuse any step (The Go
+// Programming Language Specification, Arithmetic operators); math.FMA is
+// exactly one rounding on every platform. The steps are written out in the
+// loop rather than called, so the fast path makes no call per value.
+func tfForward[T tfNumber, D float32 | float64](dst []D, src []T, c, s float64) {
 	dst = dst[:len(src)]
-	for i, x := range src {
-		dst[i] = (float64(x) - c) / s
+	for i, v := range src {
+		x := float64(v)
+		hi := float64(x - c)
+		q := float64(hi / s)
+		if a := math.Abs(q); a >= tfQMin && a <= math.MaxFloat64 && math.Abs(hi) >= tfHiMin {
+			z := float64(hi - x)
+			lo := float64(x-float64(hi-z)) - float64(c+z)
+			corr := float64(float64(math.FMA(-q, s, hi)+lo) / s)
+			b := float64(a * 0x1p-100)
+			if y := float64(q + float64(corr-b)); y == float64(q+float64(corr+b)) {
+				dst[i] = D(y)
+				continue
+			}
+		}
+		dst[i] = D(tfForwardSlow(x, c, s))
 	}
 }
 
-// tfForward32 writes float32(Forward(float64(src[i]))) into dst[i]: the
-// float64 result rounded once to float32.
-func tfForward32[T tfNumber](dst []float32, src []T, c, s float64) {
-	dst = dst[:len(src)]
-	for i, x := range src {
-		dst[i] = float32((float64(x) - c) / s)
+// tfForwardSlow is tfForward's path for the values its fast path cannot
+// decide. It tries, in order:
+//
+//   - zero, NaN or infinite x - c, or Params that fail Validate: the IEEE
+//     754 quotient float64(x-c) / s;
+//   - x - c exact (lo == 0, which includes c == 0): a single IEEE 754
+//     division of it is already correctly rounded;
+//   - inside the fast path's range, where the rounding test failed: if
+//     r + lo and (r + lo) / s are both exact (checked with TwoSum and
+//     math.FMA), the quotient is exactly q + corr and one IEEE 754
+//     addition rounds it correctly, ties included. Exact ties (the
+//     quotient on a midpoint) always pass this check: the midpoint minus q
+//     is then ± a power of two, times s a float64;
+//   - otherwise the exact rational (x - c) / s from math/big, rounded to
+//     nearest by big.Rat.Float64 (correctly rounded, subnormals included;
+//     a result that underflows to zero keeps its sign).
+func tfForwardSlow(x, c, s float64) float64 {
+	hi := x - c
+	if hi == 0 || !scaleFinite(x) || !scaleFinite(c) || !scaleFinite(s) || s == 0 {
+		return hi / s
 	}
+	if !math.IsInf(hi, 0) {
+		z := float64(hi - x)
+		lo := float64(x-float64(hi-z)) - float64(c+z)
+		if lo == 0 {
+			return hi / s
+		}
+		q := float64(hi / s)
+		if a := math.Abs(q); a >= tfQMin && a <= math.MaxFloat64 && math.Abs(hi) >= tfHiMin {
+			r := math.FMA(-q, s, hi) // exact, as on the fast path
+			t := float64(r + lo)
+			w := float64(t - r)
+			if float64(r-float64(t-w))+float64(lo-w) == 0 { // TwoSum: t == r + lo exactly
+				corr := float64(t / s)
+				// With corr and s normal and ec + es >= -970, the last bits of
+				// corr and s multiply to at least 2^-1074, so corr*s - t is a
+				// multiple of 2^-1074 and math.FMA rounds it to 0 only when it
+				// is exactly 0.
+				ec, es := math.Ilogb(corr), math.Ilogb(s)
+				if ec >= -1022 && es >= -1022 && ec+es >= -970 && math.FMA(corr, s, -t) == 0 {
+					return q + corr
+				}
+			}
+		}
+	}
+	r := new(big.Rat).Sub(exactRat(x), exactRat(c))
+	y, _ := r.Quo(r, exactRat(s)).Float64()
+	return y
 }
 
-// tfInverse writes Inverse(float64(src[i])) into dst[i]. The conversion
-// float64(y*s) rounds the product before the addition, as in
-// Params.Inverse, so the compiler may not fuse them into an FMA.
+// tfInverse writes Inverse(float64(src[i])) into dst[i]: math.FMA, one
+// rounding on every platform, as in Params.Inverse.
 func tfInverse[T float32 | float64](dst []float64, src []T, c, s float64) {
 	dst = dst[:len(src)]
 	for i, y := range src {
-		dst[i] = float64(float64(y)*s) + c
+		dst[i] = math.FMA(float64(y), s, c)
 	}
 }
 
