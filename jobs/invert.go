@@ -31,31 +31,17 @@ import (
 // from cfg.ParamsPath's for a selected column is refused, as is a file
 // that was already mapped back.
 func Invert(ctx context.Context, cfg Config, columns []string) (err error) {
-	if err := cfg.checkPaths(true); err != nil {
-		return err
-	}
-	if cfg.ParamsPath == "" {
-		return fmt.Errorf("%w: no parameters: give --params", ErrUsage)
-	}
-	log, err := newRunLog(&cfg, "invert")
+	log, end, err := begin(&cfg, "invert", true, cfg.ParamsPath, "--params")
 	if err != nil {
 		return err
 	}
-	defer func() { err = log.done(err) }()
+	defer func() { err = end(err) }()
 	src, raw, err := readManifest(cfg.ParamsPath)
 	if err != nil {
 		return err
 	}
 	sel, err := invertColumns(src, columns, cfg.ParamsPath)
 	if err != nil {
-		return err
-	}
-	unlock, err := lockOutput(&cfg, log)
-	if err != nil {
-		return err
-	}
-	defer unlock()
-	if err := checkOutput(&cfg); err != nil {
 		return err
 	}
 	files, err := arrowio.DiscoverInput(cfg.Input)

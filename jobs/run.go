@@ -30,22 +30,11 @@ const (
 // filter selects, taking unchanged files from the cache), then scaled
 // copies, then the manifest. It holds the output's lock throughout.
 func Run(ctx context.Context, cfg Config) (err error) {
-	if err := cfg.checkPaths(true); err != nil {
-		return err
-	}
-	log, err := newRunLog(&cfg, "run")
+	log, end, err := begin(&cfg, "run", true)
 	if err != nil {
 		return err
 	}
-	defer func() { err = log.done(err) }()
-	unlock, err := lockOutput(&cfg, log)
-	if err != nil {
-		return err
-	}
-	defer unlock()
-	if err := checkOutput(&cfg); err != nil {
-		return err
-	}
+	defer func() { err = end(err) }()
 	p, err := discover(cfg.Input, cfg.Rules)
 	if err != nil {
 		return err
@@ -85,19 +74,47 @@ func Run(ctx context.Context, cfg Config) (err error) {
 	return p.commit(ctx, &cfg, m, outs, log)
 }
 
+// begin starts a command: it checks the paths and the required flags
+// (pairs of value and flag name), opens the run log and, for commands
+// that write a dataset, takes the output's lock and checks that the output
+// tree may be written. The caller must pass its result through end, which
+// releases the lock and writes the summary line.
+func begin(cfg *Config, command string, writes bool, required ...string) (log *runLog, end func(error) error, err error) {
+	if err := cfg.checkPaths(writes); err != nil {
+		return nil, nil, err
+	}
+	for i := 0; i+1 < len(required); i += 2 {
+		if required[i] == "" {
+			return nil, nil, fmt.Errorf("%w: %s needs %s", ErrUsage, command, required[i+1])
+		}
+	}
+	if log, err = newRunLog(cfg, command); err != nil {
+		return nil, nil, err
+	}
+	if !writes {
+		return log, log.done, nil
+	}
+	unlock, err := lockOutput(cfg, log)
+	if err != nil {
+		return nil, nil, log.done(err)
+	}
+	end = func(err error) error {
+		unlock()
+		return log.done(err)
+	}
+	if err := checkOutput(cfg); err != nil {
+		return nil, nil, end(err)
+	}
+	return log, end, nil
+}
+
 // Measure makes pass one only and writes the statistics file.
 func Measure(ctx context.Context, cfg Config) (err error) {
-	if err := cfg.checkPaths(false); err != nil {
-		return err
-	}
-	if cfg.StatsPath == "" {
-		return fmt.Errorf("%w: no statistics file: give --stats", ErrUsage)
-	}
-	log, err := newRunLog(&cfg, "measure")
+	log, end, err := begin(&cfg, "measure", false, cfg.StatsPath, "--stats")
 	if err != nil {
 		return err
 	}
-	defer func() { err = log.done(err) }()
+	defer func() { err = end(err) }()
 	p, err := discover(cfg.Input, cfg.Rules)
 	if err != nil {
 		return err
@@ -135,25 +152,11 @@ func Measure(ctx context.Context, cfg Config) (err error) {
 // statistics file; nothing is re-measured. Values outside the fitted
 // [min, max] are counted per column and raise a warning.
 func Apply(ctx context.Context, cfg Config) (err error) {
-	if err := cfg.checkPaths(true); err != nil {
-		return err
-	}
-	if cfg.ParamsPath == "" {
-		return fmt.Errorf("%w: no parameters: give --params", ErrUsage)
-	}
-	log, err := newRunLog(&cfg, "apply")
+	log, end, err := begin(&cfg, "apply", true, cfg.ParamsPath, "--params")
 	if err != nil {
 		return err
 	}
-	defer func() { err = log.done(err) }()
-	unlock, err := lockOutput(&cfg, log)
-	if err != nil {
-		return err
-	}
-	defer unlock()
-	if err := checkOutput(&cfg); err != nil {
-		return err
-	}
+	defer func() { err = end(err) }()
 	raw, err := arrowio.ReadFile(cfg.ParamsPath)
 	if err != nil {
 		return err
