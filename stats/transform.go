@@ -48,36 +48,19 @@ func tfTransform(mem memory.Allocator, arr arrow.Array, p Params, asFloat32 bool
 	n := arr.Len()
 	values := memory.NewResizableBuffer(mem)
 	defer values.Release()
-	c, s := p.Center, p.Scale
 	if asFloat32 {
 		values.Resize(arrow.Float32Traits.BytesRequired(n))
-		dst := arrow.Float32Traits.CastFromBytes(values.Bytes())
-		switch a := arr.(type) {
-		case *array.Int8:
-			tfForward(dst, a.Int8Values(), c, s)
-		case *array.Int16:
-			tfForward(dst, a.Int16Values(), c, s)
-		case *array.Int32:
-			tfForward(dst, a.Int32Values(), c, s)
-		case *array.Int64:
-			tfForward(dst, a.Int64Values(), c, s)
-		case *array.Uint8:
-			tfForward(dst, a.Uint8Values(), c, s)
-		case *array.Uint16:
-			tfForward(dst, a.Uint16Values(), c, s)
-		case *array.Uint32:
-			tfForward(dst, a.Uint32Values(), c, s)
-		case *array.Uint64:
-			tfForward(dst, a.Uint64Values(), c, s)
-		case *array.Float32:
-			tfForward(dst, a.Float32Values(), c, s)
-		case *array.Float64:
-			tfForward(dst, a.Float64Values(), c, s)
-		}
+		tfForwardArray(arrow.Float32Traits.CastFromBytes(values.Bytes()), arr, p.Center, p.Scale)
 		return tfFinish(mem, arr, arrow.PrimitiveTypes.Float32, values), nil
 	}
 	values.Resize(arrow.Float64Traits.BytesRequired(n))
-	dst := arrow.Float64Traits.CastFromBytes(values.Bytes())
+	tfForwardArray(arrow.Float64Traits.CastFromBytes(values.Bytes()), arr, p.Center, p.Scale)
+	return tfFinish(mem, arr, arrow.PrimitiveTypes.Float64, values), nil
+}
+
+// tfForwardArray scales every slot of arr (one of the types tfScalable
+// accepts) into dst; the type switch runs once per array, not per value.
+func tfForwardArray[D float32 | float64](dst []D, arr arrow.Array, c, s float64) {
 	switch a := arr.(type) {
 	case *array.Int8:
 		tfForward(dst, a.Int8Values(), c, s)
@@ -100,7 +83,6 @@ func tfTransform(mem memory.Allocator, arr arrow.Array, p Params, asFloat32 bool
 	case *array.Float64:
 		tfForward(dst, a.Float64Values(), c, s)
 	}
-	return tfFinish(mem, arr, arrow.PrimitiveTypes.Float64, values), nil
 }
 
 // tfScalable reports whether Transform accepts arr: a concrete Arrow array
