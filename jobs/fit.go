@@ -277,21 +277,23 @@ func (p *plan) nightly(cfg *Config, defCache string, log *runLog) error {
 	if p.cache, err = openCache(cfg, defCache); err != nil {
 		return err
 	}
-	fitted := len(p.Files)
-	if p.Fit != nil {
-		fitted = 0
-		for _, ok := range p.Fit {
-			if ok {
-				fitted++
-			}
-		}
-	}
 	cache := ""
 	if p.cache != nil {
 		cache = p.cache.dir
 	}
-	log.phase("discover", "files", len(p.Files), "files_fitted", fitted, "columns", len(p.Columns), "fit", cfg.Fit.String(), "cache", cache)
+	log.phase("discover", "files", len(p.Files), "files_fitted", p.fittedCount(), "columns", len(p.Columns), "fit", cfg.Fit.String(), "cache", cache)
 	return nil
+}
+
+// fittedCount is how many files the statistics come from.
+func (p *plan) fittedCount() int {
+	n := 0
+	for i := range p.Files {
+		if p.fits(i) {
+			n++
+		}
+	}
+	return n
 }
 
 // input is file i's manifest entry, marked with whether it went into the

@@ -143,8 +143,8 @@ func Measure(ctx context.Context, cfg Config) (err error) {
 	if err := writeManifest(cfg.StatsPath, m); err != nil {
 		return err
 	}
-	fmt.Fprintf(cfg.Out, "measured %d columns over %d files (%d rows); statistics in %s\n",
-		len(cols), len(p.Files), totalRows(results), cfg.StatsPath)
+	fmt.Fprintf(cfg.Out, "measured %d columns over %d of %d files; statistics in %s\n",
+		len(cols), p.fittedCount(), len(p.Files), cfg.StatsPath)
 	return nil
 }
 
@@ -277,14 +277,6 @@ func input(f arrowio.File, r fileResult) manifests.Input {
 		part[kv.Key] = kv.Value
 	}
 	return manifests.Input{Path: f.Rel, Partition: part, Rows: r.Rows, Bytes: r.Bytes, SHA256: r.SHA256}
-}
-
-func totalRows(rs []fileResult) int64 {
-	var n int64
-	for _, r := range rs {
-		n += r.Rows
-	}
-	return n
 }
 
 // newManifest starts a document with the tool, job and columns filled in.
