@@ -74,7 +74,10 @@ func main() {
 	}
 	b := func(name string) string { return filepath.Join(*bin, name) }
 	lake := filepath.Join(*cache, fmt.Sprintf("lake-%d", *rows))
-	work := filepath.Join(*cache, "work")
+	// Outputs and statistics files of this run only: a file left by an
+	// earlier run (another lake size, another job list) must not be checked.
+	work := filepath.Join(*cache, fmt.Sprintf("work-%d", *rows))
+	must(os.RemoveAll(work))
 	must(os.MkdirAll(work, 0o755))
 	w := func(name string, t int) string { return filepath.Join(work, fmt.Sprintf("%s-%d", name, t)) }
 
@@ -200,8 +203,8 @@ func main() {
 		x, ok1 := med("full run", t1)
 		y, ok2 := med("full run", t2)
 		if ok1 && ok2 {
-			fmt.Fprintf(&out, "| full run speed-up, %d → %d workers (≥ 1.7) | %d/%d | %.2f | %.2f (CPU s %d / %d) | %s |\n",
-				t1, t2, t1, t2, x.wall/y.wall, x.cpu/y.cpu, t1, t2, yesNo(x.wall/y.wall >= 1.7))
+			fmt.Fprintf(&out, "| full run speed-up, %d → %d workers (≥ 1.7) | %d/%d | %.2f | CPU s %.1f / %.1f | %s |\n",
+				t1, t2, t1, t2, x.wall/y.wall, x.cpu, y.cpu, yesNo(x.wall/y.wall >= 1.7))
 		}
 		var peak float64
 		for _, j := range jobs {
@@ -241,8 +244,9 @@ func main() {
 	}
 	fmt.Fprintf(&out, "\nload average at end: %s\n", loadAvg())
 	fmt.Print("\n" + out.String())
-	must(os.WriteFile(filepath.Join(*cache, "results.md"), out.Bytes(), 0o644))
-	fmt.Printf("(also in %s)\n", filepath.Join(*cache, "results.md"))
+	results := filepath.Join(*cache, fmt.Sprintf("results-%d.md", *rows))
+	must(os.WriteFile(results, out.Bytes(), 0o644))
+	fmt.Printf("(also in %s)\n", results)
 }
 
 func timeCmd(argv []string) (sample, error) {
