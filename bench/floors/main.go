@@ -234,7 +234,7 @@ func copyFile(src, dst string, defaultWriter bool) (rows, bytes int64, err error
 		return 0, 0, err
 	}
 	if err := fill(w); err != nil {
-		w.Close()
+		_ = w.Close() // the fill error is the one to report
 		return 0, 0, err
 	}
 	if err := w.Close(); err != nil { // closes f

@@ -192,7 +192,7 @@ func writeFile(path string, seq, site, day int, rows, rgRows int64) error {
 		return err
 	}
 	if err := w.Write(rec); err != nil {
-		w.Close()
+		_ = w.Close() // the write error is the one to report
 		return err
 	}
 	return w.Close() // closes f
