@@ -35,28 +35,12 @@ func Run(ctx context.Context, cfg Config) (err error) {
 		return err
 	}
 	defer func() { err = end(err) }()
-	p, err := discover(cfg.Input, cfg.Rules)
+	p, results, cols, params, err := measureAll(ctx, &cfg, filepath.Join(cfg.Output, cacheDirName), log)
 	if err != nil {
 		return err
 	}
-	if err := p.nightly(&cfg, filepath.Join(cfg.Output, cacheDirName), log); err != nil {
-		return err
-	}
-	results, err := passOne(ctx, &cfg, p)
-	if err != nil {
-		return err
-	}
-	log.passOne(results)
-	cols, params, err := fitColumns(p, results)
-	if err != nil {
-		return err
-	}
-	log.phase("fit", "columns", len(cols))
 	// The output is touched only once the statistics are known to be good.
 	if err := prepareOutput(&cfg); err != nil {
-		return err
-	}
-	if err := p.saveCache(ctx, &cfg, results, log); err != nil {
 		return err
 	}
 	if cfg.Fit != nil {
@@ -108,6 +92,34 @@ func begin(cfg *Config, command string, writes bool, required ...string) (log *r
 	return log, end, nil
 }
 
+// measureAll is pass one of run and measure: discovery, the fit slice and
+// cache, the statistics of every file, the fitted parameters, and the
+// cache entries of the files measured (written once the statistics are
+// known to be good). defCache is the cache folder used without --cache.
+func measureAll(ctx context.Context, cfg *Config, defCache string, log *runLog) (*plan, []fileResult, []manifests.Column, []stats.Params, error) {
+	p, err := discover(cfg.Input, cfg.Rules)
+	if err != nil {
+		return nil, nil, nil, nil, err
+	}
+	if err := p.nightly(cfg, defCache, log); err != nil {
+		return nil, nil, nil, nil, err
+	}
+	results, err := passOne(ctx, cfg, p)
+	if err != nil {
+		return nil, nil, nil, nil, err
+	}
+	log.passOne(results)
+	cols, params, err := fitColumns(p, results)
+	if err != nil {
+		return nil, nil, nil, nil, err
+	}
+	log.phase("fit", "columns", len(cols))
+	if err := p.saveCache(ctx, cfg, results, log); err != nil {
+		return nil, nil, nil, nil, err
+	}
+	return p, results, cols, params, nil
+}
+
 // Measure makes pass one only and writes the statistics file.
 func Measure(ctx context.Context, cfg Config) (err error) {
 	log, end, err := begin(&cfg, "measure", false, cfg.StatsPath, "--stats")
@@ -115,24 +127,8 @@ func Measure(ctx context.Context, cfg Config) (err error) {
 		return err
 	}
 	defer func() { err = end(err) }()
-	p, err := discover(cfg.Input, cfg.Rules)
+	p, results, cols, _, err := measureAll(ctx, &cfg, "", log)
 	if err != nil {
-		return err
-	}
-	if err := p.nightly(&cfg, "", log); err != nil {
-		return err
-	}
-	results, err := passOne(ctx, &cfg, p)
-	if err != nil {
-		return err
-	}
-	log.passOne(results)
-	cols, _, err := fitColumns(p, results)
-	if err != nil {
-		return err
-	}
-	log.phase("fit", "columns", len(cols))
-	if err := p.saveCache(ctx, &cfg, results, log); err != nil {
 		return err
 	}
 	m := cfg.newManifest(manifests.KindStatistics, cols)
