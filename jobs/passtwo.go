@@ -16,6 +16,11 @@ import (
 	"github.com/lakescale/lakescale/stats"
 )
 
+// outputRowGroupRows caps an output row group. Each worker buffers one
+// compressed row group while writing it, so the cap (rather than the
+// input's row-group size) bounds pass two's memory.
+const outputRowGroupRows = 256 << 10
+
 // hookFileWritten is called after each output file is in place; tests use
 // it to interrupt a run at a known point.
 var hookFileWritten = func(rel string) {}
@@ -80,8 +85,9 @@ func scaleFile(ctx context.Context, cfg *Config, p *plan, i int, params []stats.
 	}
 	schema := outputSchema(r.Schema(), idx, cfg.Float32)
 	opts := arrowio.WriteOptions{
-		Compression: cfg.Compression,
-		Metadata:    map[string]string{p.metaKey(): meta},
+		Compression:  cfg.Compression,
+		RowGroupRows: outputRowGroupRows,
+		Metadata:     map[string]string{p.metaKey(): meta},
 	}
 	dst := filepath.Join(cfg.Output, filepath.FromSlash(f.Rel))
 	mapCol, outside := p.columnMapper(cfg, params)
