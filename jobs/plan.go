@@ -1,8 +1,10 @@
 package jobs
 
 import (
+	"cmp"
 	"fmt"
 	"path"
+	"slices"
 	"strings"
 
 	"github.com/apache/arrow/go/v17/arrow"
@@ -101,7 +103,7 @@ func selectColumns(sc *arrow.Schema, rules []Rule) ([]column, error) {
 	for i, f := range sc.Fields() {
 		order[f.Name] = i
 	}
-	sortBy(cols, func(c column) int { return order[c.Name] })
+	slices.SortStableFunc(cols, func(a, b column) int { return cmp.Compare(order[a.Name], order[b.Name]) })
 	return cols, nil
 }
 

@@ -42,7 +42,7 @@ func tfTransform(mem memory.Allocator, arr arrow.Array, p Params, asFloat32 bool
 	if err := p.Validate(); err != nil {
 		return nil, err
 	}
-	if !tfScalable(arr) {
+	if _, ok := KindOf(arr.DataType()); !ok {
 		return nil, fmt.Errorf("%w: cannot scale values of type %s", arrow.ErrType, arr.DataType())
 	}
 	n := arr.Len()
@@ -58,7 +58,7 @@ func tfTransform(mem memory.Allocator, arr arrow.Array, p Params, asFloat32 bool
 	return tfFinish(mem, arr, arrow.PrimitiveTypes.Float64, values), nil
 }
 
-// tfForwardArray scales every slot of arr (one of the types tfScalable
+// tfForwardArray scales every slot of arr (one of the numeric types KindOf
 // accepts) into dst; the type switch runs once per array, not per value.
 func tfForwardArray[D float32 | float64](dst []D, arr arrow.Array, c, s float64) {
 	switch a := arr.(type) {
@@ -83,18 +83,6 @@ func tfForwardArray[D float32 | float64](dst []D, arr arrow.Array, c, s float64)
 	case *array.Float64:
 		tfForward(dst, a.Float64Values(), c, s)
 	}
-}
-
-// tfScalable reports whether Transform accepts arr: a concrete Arrow array
-// of one of the numeric types int8 to uint64, float32 or float64.
-func tfScalable(arr arrow.Array) bool {
-	switch arr.(type) {
-	case *array.Int8, *array.Int16, *array.Int32, *array.Int64,
-		*array.Uint8, *array.Uint16, *array.Uint32, *array.Uint64,
-		*array.Float32, *array.Float64:
-		return true
-	}
-	return false
 }
 
 // tfNumber is every element type Transform reads. Each instantiation below
