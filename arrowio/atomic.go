@@ -22,6 +22,7 @@ type tempFile interface {
 var (
 	createTemp = func(dir, pattern string) (tempFile, error) { return os.CreateTemp(dir, pattern) }
 	rename     = os.Rename
+	link       = os.Link
 	syncDir    = fsyncDir
 )
 
@@ -49,7 +50,7 @@ const writeBufferSize = 256 << 10
 // removed and nothing appears at path (an existing file at path is left as
 // it was). Errors from write are returned annotated with "write path".
 func WriteFileAtomic(path string, write func(io.Writer) error) error {
-	_, _, err := writeAtomic(path, func(w io.Writer) error {
+	_, _, err := writeAtomic(path, false, func(w io.Writer) error {
 		if err := write(w); err != nil {
 			return pathError("write", path, err)
 		}
@@ -58,11 +59,13 @@ func WriteFileAtomic(path string, write func(io.Writer) error) error {
 	return err
 }
 
-// writeAtomic is the one atomic-write helper behind every output. It
+// writeAtomic is the one atomic-write helper behind every local output. It
 // returns the number of bytes written and their SHA-256, computed on the
 // way to the file. write's errors are returned as they are, unless writing
-// to the file failed, in which case that failure is returned.
-func writeAtomic(path string, write func(io.Writer) error) (n int64, sum string, err error) {
+// to the file failed, in which case that failure is returned. With
+// ifAbsent the temporary file is hard-linked to path instead of renamed
+// over it, which fails (wrapping fs.ErrExist) when path exists.
+func writeAtomic(path string, ifAbsent bool, write func(io.Writer) error) (n int64, sum string, err error) {
 	dir, name := filepath.Split(path)
 	if dir == "" {
 		dir = "."
@@ -111,10 +114,19 @@ func writeAtomic(path string, write func(io.Writer) error) (n int64, sum string,
 	if err := f.Close(); err != nil {
 		return 0, "", pathError("close", path, bareErr(err))
 	}
-	if err := rename(tmp, path); err != nil {
-		return 0, "", pathError("rename", path, bareErr(err))
+	if ifAbsent {
+		if err := link(tmp, path); err != nil {
+			return 0, "", pathError("create", path, bareErr(err))
+		}
+		committed = true
+		// The name is linked; the temporary one is now only a second name.
+		os.Remove(tmp)
+	} else {
+		if err := rename(tmp, path); err != nil {
+			return 0, "", pathError("rename", path, bareErr(err))
+		}
+		committed = true
 	}
-	committed = true
 	// Without the folder sync the rename may not survive a crash. Keep the
 	// promise that an error leaves nothing at path: a caller that treats
 	// this file as a commit point must not find it after a failure.

@@ -147,7 +147,7 @@ func WriteParquetAtomic(ctx context.Context, path string, schema *arrow.Schema, 
 	slices.Sort(keys)
 
 	var rows int64
-	n, sum, err := writeAtomic(path, func(w io.Writer) error {
+	n, sum, err := writeAtomic(path, false, func(w io.Writer) error {
 		r, err := writeParquet(ctx, w, schema, props, arrowProps, keys, opts.Metadata, fill)
 		if err == nil || err == context.Cause(ctx) {
 			rows = r
