@@ -24,7 +24,7 @@ type localStore struct{}
 func (localStore) Stat(_ context.Context, key string) (ObjectInfo, error) {
 	st, err := os.Stat(key)
 	if err != nil {
-		return ObjectInfo{}, unwrapPath(err)
+		return ObjectInfo{}, pathError("stat", key, unwrapPath(err))
 	}
 	return ObjectInfo{Key: key, Size: st.Size(), ModTime: st.ModTime()}, nil
 }
@@ -37,7 +37,7 @@ func (localStore) List(_ context.Context, dir string) ([]ObjectInfo, error) {
 	}
 	walkRoot, err := filepath.EvalSymlinks(dir)
 	if err != nil {
-		return nil, unwrapPath(err)
+		return nil, pathError("list", dir, unwrapPath(err))
 	}
 	var out []ObjectInfo
 	err = filepath.WalkDir(walkRoot, func(p string, d fs.DirEntry, err error) error {
@@ -59,7 +59,7 @@ func (localStore) List(_ context.Context, dir string) ([]ObjectInfo, error) {
 		return nil
 	})
 	if err != nil {
-		return nil, err
+		return nil, pathError("list", dir, unwrapPath(err))
 	}
 	slices.SortFunc(out, func(a, b ObjectInfo) int { return strings.Compare(a.Key, b.Key) })
 	return out, nil
@@ -68,16 +68,16 @@ func (localStore) List(_ context.Context, dir string) ([]ObjectInfo, error) {
 func (localStore) Open(_ context.Context, key string) (Object, error) {
 	f, err := os.Open(key)
 	if err != nil {
-		return nil, unwrapPath(err)
+		return nil, err // *fs.PathError: "open key: ..."
 	}
 	st, err := f.Stat()
 	if err != nil {
 		f.Close()
-		return nil, unwrapPath(err)
+		return nil, pathError("open", key, unwrapPath(err))
 	}
 	if st.IsDir() {
 		f.Close()
-		return nil, errors.New("is a directory")
+		return nil, pathError("open", key, errors.New("is a directory"))
 	}
 	return &localObject{File: f, size: st.Size()}, nil
 }
@@ -95,7 +95,7 @@ func (localStore) Write(_ context.Context, key string, ifAbsent bool, write func
 
 func (localStore) Delete(_ context.Context, key string) error {
 	if err := os.Remove(key); err != nil && !errors.Is(err, fs.ErrNotExist) {
-		return unwrapPath(err)
+		return pathError("remove", key, unwrapPath(err))
 	}
 	return nil
 }

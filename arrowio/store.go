@@ -16,9 +16,10 @@ import (
 // S3-compatible object store. Keys are what the backend names objects by:
 // operating-system paths on local disk, object keys (slash-separated,
 // without the bucket) on S3. The package-level functions (Open, Discover,
-// WriteFileAtomic, ...) take locations, pick the Store and key with
-// Locate, and add the location to every error; a Store's own errors need
-// only say what went wrong.
+// WriteFileAtomic, ...) take locations and pick the Store and key with
+// Locate. A Store's errors name the object the way a user would write it
+// (a path, or s3://bucket/key) in the form "op object: err", and keep
+// fs.ErrNotExist and fs.ErrExist matchable with errors.Is.
 //
 // A Store is safe for concurrent use.
 type Store interface {
