@@ -204,3 +204,7 @@ func readAll(ctx context.Context, st Store, key string) ([]byte, error) {
 	}
 	return b, nil
 }
+
+// HasScheme reports whether loc is a URI (file:// or s3://, or an
+// unsupported scheme that Locate will refuse) rather than a plain path.
+func HasScheme(loc string) bool { return strings.Contains(loc, "://") }

@@ -9,7 +9,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
-	"path/filepath"
+	"path"
 	"strings"
 
 	"github.com/lakescale/lakescale/arrowio"
@@ -91,11 +91,11 @@ func openCache(cfg *Config, def string) (*statsCache, error) {
 	if dir == "" {
 		return nil, nil
 	}
-	in, err := filepath.Abs(cfg.Input)
+	in, err := arrowio.ResolvePath(cfg.Input)
 	if err != nil {
 		return nil, err
 	}
-	abs, err := filepath.Abs(dir)
+	abs, err := arrowio.ResolvePath(dir)
 	if err != nil {
 		return nil, err
 	}
@@ -109,7 +109,7 @@ func openCache(cfg *Config, def string) (*statsCache, error) {
 // relative path so that any path gives a short, safe name.
 func (c *statsCache) entryPath(rel string) string {
 	sum := sha256.Sum256([]byte(rel))
-	return filepath.Join(c.dir, hex.EncodeToString(sum[:])+cacheExt)
+	return arrowio.Join(c.dir, hex.EncodeToString(sum[:])+cacheExt)
 }
 
 // cacheKey is everything an entry must match to be used.
@@ -180,14 +180,14 @@ func (c *statsCache) prune(files []arrowio.File) (int, error) {
 	}
 	keep := make(map[string]bool, len(files))
 	for _, f := range files {
-		keep[filepath.Base(c.entryPath(f.Rel))] = true
+		keep[path.Base(c.entryPath(f.Rel))] = true
 	}
 	n := 0
 	for _, name := range names {
 		if !strings.HasSuffix(name, cacheExt) || keep[name] || !isEntryName(name) {
 			continue
 		}
-		if err := arrowio.Remove(filepath.Join(c.dir, name)); err != nil {
+		if err := arrowio.Remove(arrowio.Join(c.dir, name)); err != nil {
 			return n, err
 		}
 		n++

@@ -137,7 +137,7 @@ func Load(jobPath string, o Overrides) (Config, error) {
 	// Relative paths in a job file are relative to the file, so a job file
 	// and its data can move together.
 	for _, p := range []*string{&jf.Input, &jf.Output} {
-		if *p != "" && !filepath.IsAbs(*p) {
+		if *p != "" && !filepath.IsAbs(*p) && !arrowio.HasScheme(*p) {
 			*p = filepath.Join(filepath.Dir(jobPath), *p)
 		}
 	}
@@ -325,7 +325,7 @@ func within(p, dir string) bool {
 // settings is the canonical, result-determining part of the job.
 func (c *Config) settings() manifests.Settings {
 	s := manifests.Settings{
-		Input:       filepath.ToSlash(filepath.Clean(c.Input)),
+		Input:       filepath.ToSlash(arrowio.Join(c.Input)),
 		Std:         string(c.Std),
 		OutputType:  "float64",
 		Compression: string(c.Compression),
@@ -333,7 +333,7 @@ func (c *Config) settings() manifests.Settings {
 		Fit:         c.Fit.String(),
 	}
 	if c.Output != "" {
-		s.Output = filepath.ToSlash(filepath.Clean(c.Output))
+		s.Output = filepath.ToSlash(arrowio.Join(c.Output))
 	}
 	if c.Float32 {
 		s.OutputType = "float32"

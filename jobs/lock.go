@@ -3,7 +3,6 @@ package jobs
 import (
 	"errors"
 	"fmt"
-	"path/filepath"
 
 	"github.com/lakescale/lakescale/arrowio"
 )
@@ -18,7 +17,7 @@ const lockName = "_lock"
 // process of this host that no longer runs is taken over, with a note on
 // Out and a warning in the log. The returned function releases the lock.
 func lockOutput(cfg *Config, log *runLog) (func(), error) {
-	path := filepath.Join(cfg.Output, lockName)
+	path := arrowio.Join(cfg.Output, lockName)
 	l, stale, err := arrowio.AcquireLock(path, cfg.Now())
 	if errors.Is(err, arrowio.ErrLocked) {
 		return nil, fmt.Errorf("output %s is in use by another run (remove %s only if that run is dead): %w", cfg.Output, path, err)

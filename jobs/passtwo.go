@@ -4,7 +4,6 @@ import (
 	"context"
 	"fmt"
 	"math"
-	"path/filepath"
 
 	"github.com/apache/arrow/go/v17/arrow"
 	"github.com/apache/arrow/go/v17/arrow/array"
@@ -89,7 +88,7 @@ func scaleFile(ctx context.Context, cfg *Config, p *plan, i int, params []stats.
 		RowGroupRows: outputRowGroupRows,
 		Metadata:     map[string]string{p.metaKey(): meta},
 	}
-	dst := filepath.Join(cfg.Output, filepath.FromSlash(f.Rel))
+	dst := arrowio.Join(cfg.Output, f.Rel)
 	mapCol, outside := p.columnMapper(cfg, params)
 	out, err := arrowio.WriteParquetAtomic(ctx, dst, schema, opts, func(w *pqarrow.FileWriter) error {
 		for rg := range r.NumRowGroups() {

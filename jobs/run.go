@@ -35,7 +35,7 @@ func Run(ctx context.Context, cfg Config) (err error) {
 		return err
 	}
 	defer func() { err = end(err) }()
-	p, results, cols, params, err := measureAll(ctx, &cfg, filepath.Join(cfg.Output, cacheDirName), log)
+	p, results, cols, params, err := measureAll(ctx, &cfg, arrowio.Join(cfg.Output, cacheDirName), log)
 	if err != nil {
 		return err
 	}
@@ -367,7 +367,7 @@ func checkOutput(cfg *Config) error {
 // created empty).
 func noteOwnedOutputs(cfg *Config) error {
 	cfg.owned = map[string]bool{}
-	path := filepath.Join(cfg.Output, ManifestName)
+	path := arrowio.Join(cfg.Output, ManifestName)
 	if ok, err := arrowio.Exists(path); err != nil || !ok {
 		cfg.ownAll = err == nil
 		return err
@@ -399,13 +399,13 @@ func prepareOutput(cfg *Config) error {
 	// complete.
 	marker := fmt.Sprintf("lakescale run started %s; this output is not committed until %s exists\n",
 		cfg.Now().UTC().Format(time.RFC3339), ManifestName)
-	if err := arrowio.WriteFileAtomic(filepath.Join(cfg.Output, markerName), func(w io.Writer) error {
+	if err := arrowio.WriteFileAtomic(arrowio.Join(cfg.Output, markerName), func(w io.Writer) error {
 		_, err := io.WriteString(w, marker)
 		return err
 	}); err != nil {
 		return err
 	}
-	if err := arrowio.Remove(filepath.Join(cfg.Output, ManifestName)); err != nil {
+	if err := arrowio.Remove(arrowio.Join(cfg.Output, ManifestName)); err != nil {
 		return err
 	}
 	_, err := arrowio.RemoveTemps(cfg.Output)
@@ -418,7 +418,7 @@ func (p *plan) commit(ctx context.Context, cfg *Config, m *manifests.Manifest, o
 	want := make(map[string]bool, len(p.Files))
 	var rows int64
 	for i, f := range p.Files {
-		dst := filepath.Join(cfg.Output, filepath.FromSlash(f.Rel))
+		dst := arrowio.Join(cfg.Output, f.Rel)
 		n, _, _, err := arrowio.ReadFooter(dst)
 		if err != nil {
 			return err
@@ -448,11 +448,11 @@ func (p *plan) commit(ctx context.Context, cfg *Config, m *manifests.Manifest, o
 		addOutside(m.Columns, outs)
 	}
 	log.sum.Warnings = countWarnings(m.Columns)
-	manifestPath := filepath.Join(cfg.Output, ManifestName)
+	manifestPath := arrowio.Join(cfg.Output, ManifestName)
 	if err := writeManifest(manifestPath, m); err != nil {
 		return err
 	}
-	if err := arrowio.Remove(filepath.Join(cfg.Output, markerName)); err != nil {
+	if err := arrowio.Remove(arrowio.Join(cfg.Output, markerName)); err != nil {
 		return err
 	}
 	verb := "scaled"

@@ -4,7 +4,6 @@ import (
 	"context"
 	"fmt"
 	"io"
-	"path/filepath"
 
 	"github.com/lakescale/lakescale/arrowio"
 	"github.com/lakescale/lakescale/manifests"
@@ -14,7 +13,7 @@ import (
 // size, rows and embedded parameters against dir/_manifest.json. Every
 // mismatch is printed; the error wraps ErrVerify when there is any.
 func Verify(ctx context.Context, w io.Writer, dir string) error {
-	m, _, err := readManifest(filepath.Join(dir, ManifestName))
+	m, _, err := readManifest(arrowio.Join(dir, ManifestName))
 	if err != nil {
 		return err
 	}
@@ -24,7 +23,7 @@ func Verify(ctx context.Context, w io.Writer, dir string) error {
 	case manifests.KindInverted:
 		key = InvertedMetadataKey
 	default:
-		return fmt.Errorf("%s: %w: kind %s, want %s or %s", filepath.Join(dir, ManifestName), manifests.ErrInvalid, m.Kind, manifests.KindDataset, manifests.KindInverted)
+		return fmt.Errorf("%s: %w: kind %s, want %s or %s", arrowio.Join(dir, ManifestName), manifests.ErrInvalid, m.Kind, manifests.KindDataset, manifests.KindInverted)
 	}
 	want := m.FileParams()
 	var problems []string
@@ -39,7 +38,7 @@ func Verify(ctx context.Context, w io.Writer, dir string) error {
 			return err
 		}
 		listed[o.Path] = true
-		path := filepath.Join(dir, filepath.FromSlash(o.Path))
+		path := arrowio.Join(dir, o.Path)
 		size, sum, err := arrowio.HashFile(path)
 		if err != nil {
 			report("%s: %v", o.Path, err)
@@ -78,7 +77,7 @@ func Verify(ctx context.Context, w io.Writer, dir string) error {
 	if len(problems) > 0 {
 		return fmt.Errorf("%w: %s: %d mismatches", ErrVerify, dir, len(problems))
 	}
-	fmt.Fprintf(w, "ok: %d files match %s\n", len(m.Outputs), filepath.Join(dir, ManifestName))
+	fmt.Fprintf(w, "ok: %d files match %s\n", len(m.Outputs), arrowio.Join(dir, ManifestName))
 	return nil
 }
 
