@@ -45,12 +45,31 @@ const writeBufferSize = 256 << 10
 
 // WriteFileAtomic writes a file at path atomically through write: the
 // bytes go to a temporary file ".<name>.tmp-*" in the same folder, which is
-// synced, closed and renamed over path, after which the folder is synced.
-// Missing parent folders are created. On any error the temporary file is
-// removed and nothing appears at path (an existing file at path is left as
-// it was). Errors from write are returned annotated with "write path".
+// synced, closed and renamed over path, after which the folder is synced
+// (on an object store, one upload that appears whole or not at all).
+// Missing parent folders are created. On any error nothing appears at
+// path (an existing file at path is left as it was). Errors from write
+// are returned annotated with "write path".
 func WriteFileAtomic(path string, write func(io.Writer) error) error {
-	_, _, err := writeAtomic(path, false, func(w io.Writer) error {
+	return writeFile(path, false, write)
+}
+
+// CreateFile is WriteFileAtomic that succeeds only if nothing exists at
+// path: of two writers of the same path at most one succeeds, and the
+// other gets an error wrapping fs.ErrExist. A dataset commits by creating
+// its manifest this way. On local disk the temporary file is hard-linked
+// to path (link(2) fails when path exists); on S3 the upload carries
+// If-None-Match: *.
+func CreateFile(path string, write func(io.Writer) error) error {
+	return writeFile(path, true, write)
+}
+
+func writeFile(path string, ifAbsent bool, write func(io.Writer) error) error {
+	st, key, err := Locate(path)
+	if err != nil {
+		return err
+	}
+	_, _, err = st.Write(background, key, ifAbsent, func(w io.Writer) error {
 		if err := write(w); err != nil {
 			return pathError("write", path, err)
 		}

@@ -84,7 +84,7 @@ func BenchmarkWriteFloat64(b *testing.B) {
 				b.ResetTimer()
 				for i := 0; i < b.N; i++ {
 					tw := newTeeWriter(io.Discard)
-					if _, err := writeParquet(context.Background(), tw, benchSchema, props, arrowProps, nil, nil, func(fw *pqarrow.FileWriter) error {
+					if _, err := writeParquet(context.Background(), &stickyWriter{w: tw}, benchSchema, props, arrowProps, nil, nil, func(fw *pqarrow.FileWriter) error {
 						return fw.Write(rec)
 					}); err != nil {
 						b.Fatal(err)

@@ -6,7 +6,6 @@ import (
 	"io/fs"
 	"os"
 	"path/filepath"
-	"slices"
 	"strings"
 	"time"
 )
@@ -17,7 +16,7 @@ type KV struct{ Key, Value string }
 // File is one discovered Parquet input.
 type File struct {
 	Rel       string // slash-separated path relative to the dataset root
-	Abs       string // absolute path on disk
+	Abs       string // absolute path on disk, or the s3:// location
 	Partition []KV   // Hive segments in path order
 	Size      int64
 	ModTime   time.Time
@@ -28,86 +27,73 @@ type File struct {
 // skipped (root itself is never skipped). The suffix is matched case
 // sensitively.
 //
-// root may itself be a symbolic link to a folder, but links below root are
-// not followed: a linked folder is not entered and a linked file is not a
-// regular file, so both are ignored. This keeps a walk finite and every
-// input inside the tree it was asked to read.
+// On local disk root may itself be a symbolic link to a folder, but links
+// below root are not followed: a linked folder is not entered and a linked
+// file is not a regular file, so both are ignored. This keeps a walk
+// finite and every input inside the tree it was asked to read. On an object
+// store, root is a key prefix and every object below it is listed.
 //
 // Partition is parsed from the folder segments of Rel (see ParsePartition).
-// A missing root, or one that is not a folder, is an error naming it; a
-// tree without inputs gives an error wrapping ErrNoInputs.
+// A missing local root, or one that is not a folder, is an error naming
+// it; a tree without inputs gives an error wrapping ErrNoInputs.
 func Discover(root string) ([]File, error) {
-	st, err := os.Stat(root)
+	st, key, err := Locate(root)
 	if err != nil {
 		return nil, err
 	}
-	if !st.IsDir() {
-		return nil, pathError("discover", root, errors.New("not a directory"))
+	absRoot := root
+	if st == Local {
+		info, err := os.Stat(key)
+		if err != nil {
+			return nil, err
+		}
+		if !info.IsDir() {
+			return nil, pathError("discover", root, errors.New("not a directory"))
+		}
+		if absRoot, err = filepath.Abs(key); err != nil {
+			return nil, pathError("discover", root, err)
+		}
 	}
-	absRoot, err := filepath.Abs(root)
+	objs, err := st.List(background, key)
 	if err != nil {
-		return nil, pathError("discover", root, err)
+		return nil, err
 	}
-	// filepath.WalkDir does not descend into a root that is a symbolic
-	// link, so walk the resolved folder but report paths under root.
-	walkRoot, err := filepath.EvalSymlinks(root)
-	if err != nil {
-		return nil, pathError("discover", root, err)
-	}
-
 	var files []File
-	err = filepath.WalkDir(walkRoot, func(p string, d fs.DirEntry, err error) error {
-		if err != nil {
-			return err
+	for _, o := range objs {
+		if !strings.HasSuffix(o.Key, ".parquet") || hiddenSegment(o.Key) {
+			continue
 		}
-		if p == walkRoot {
-			return nil
-		}
-		name := d.Name()
-		if strings.HasPrefix(name, "_") || strings.HasPrefix(name, ".") {
-			if d.IsDir() {
-				return filepath.SkipDir
-			}
-			return nil
-		}
-		if !d.Type().IsRegular() || !strings.HasSuffix(name, ".parquet") {
-			return nil
-		}
-		relOS, err := filepath.Rel(walkRoot, p)
-		if err != nil {
-			return pathError("discover", p, err)
-		}
-		rel := filepath.ToSlash(relOS)
-		abs := filepath.Join(absRoot, relOS)
-		part, err := ParsePartition(rel)
+		part, err := ParsePartition(o.Key)
 		if err != nil {
 			var pe *fs.PathError
 			if errors.As(err, &pe) {
 				err = pe.Err
 			}
-			return pathError("discover", filepath.Join(root, relOS), err)
-		}
-		info, err := d.Info()
-		if err != nil {
-			return err
+			return nil, pathError("discover", Join(root, o.Key), err)
 		}
 		files = append(files, File{
-			Rel:       rel,
-			Abs:       abs,
+			Rel:       o.Key,
+			Abs:       Join(absRoot, o.Key),
 			Partition: part,
-			Size:      info.Size(),
-			ModTime:   info.ModTime(),
+			Size:      o.Size,
+			ModTime:   o.ModTime,
 		})
-		return nil
-	})
-	if err != nil {
-		return nil, err
 	}
 	if len(files) == 0 {
 		return nil, pathError("discover", root, ErrNoInputs)
 	}
-	slices.SortFunc(files, func(a, b File) int { return strings.Compare(a.Rel, b.Rel) })
 	return files, nil
+}
+
+// hiddenSegment reports whether a segment of a slash-separated relative
+// path starts with '_' or '.'.
+func hiddenSegment(rel string) bool {
+	for seg := range strings.SplitSeq(rel, "/") {
+		if strings.HasPrefix(seg, "_") || strings.HasPrefix(seg, ".") {
+			return true
+		}
+	}
+	return false
 }
 
 // ParsePartition parses the Hive key=value segments of a slash-separated

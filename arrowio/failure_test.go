@@ -367,7 +367,7 @@ func TestWriteParquetSinkPanics(t *testing.T) {
 		t.Fatal(err)
 	}
 	tw := newTeeWriter(&failAfter{n: 0})
-	_, err = writeParquet(context.Background(), tw, mixedSchema, props, arrowProps, nil, nil, func(*pqarrow.FileWriter) error {
+	_, err = writeParquet(context.Background(), &stickyWriter{w: tw}, mixedSchema, props, arrowProps, nil, nil, func(*pqarrow.FileWriter) error {
 		t.Error("fill ran although the writer could not start")
 		return nil
 	})

@@ -1,8 +1,6 @@
 package arrowio
 
 import (
-	"os"
-
 	"github.com/apache/arrow/go/v17/arrow"
 	"github.com/apache/arrow/go/v17/arrow/memory"
 )
@@ -13,7 +11,11 @@ import (
 // after they are written. Errors read "read path: ..." and wrap
 // ErrNotParquet where the file is not Parquet.
 func ReadFooter(path string) (rows int64, schema *arrow.Schema, meta map[string]string, err error) {
-	f, err := os.Open(path)
+	st, key, err := Locate(path)
+	if err != nil {
+		return 0, nil, nil, err
+	}
+	f, err := st.Open(background, key)
 	if err != nil {
 		return 0, nil, nil, err
 	}

@@ -5,21 +5,24 @@ import (
 	"encoding/hex"
 	"hash"
 	"io"
-	"os"
 )
 
 // HashFile returns the size and SHA-256 (lowercase hex) of a file, reading
 // it as a stream.
-func HashFile(path string) (size int64, sum string, err error) {
-	f, err := os.Open(path)
+func HashFile(loc string) (size int64, sum string, err error) {
+	st, key, err := Locate(loc)
 	if err != nil {
 		return 0, "", err
 	}
-	defer f.Close()
-	h := sha256.New()
-	n, err := io.Copy(h, f)
+	obj, err := st.Open(background, key)
 	if err != nil {
-		return 0, "", pathError("hash", path, err)
+		return 0, "", err
+	}
+	defer obj.Close()
+	h := sha256.New()
+	n, err := io.Copy(h, io.NewSectionReader(obj, 0, obj.Size()))
+	if err != nil {
+		return 0, "", pathError("hash", loc, unwrapPath(err))
 	}
 	return n, hex.EncodeToString(h.Sum(nil)), nil
 }

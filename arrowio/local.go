@@ -99,3 +99,9 @@ func (localStore) Delete(_ context.Context, key string) error {
 	}
 	return nil
 }
+
+// isDir reports whether a local path is a folder (following links).
+func isDir(p string) bool {
+	st, err := os.Stat(p)
+	return err == nil && st.IsDir()
+}

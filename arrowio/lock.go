@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
 	"io/fs"
 	"os"
 	"path/filepath"
@@ -23,6 +24,8 @@ type LockHolder struct {
 
 // Lock is a held lock file; Release gives it up.
 type Lock struct {
+	st      Store
+	key     string
 	path    string
 	content []byte
 	created string // topmost folder AcquireLock created for the lock, or ""
@@ -40,7 +43,14 @@ type Lock struct {
 // waiting. Two processes that find the same stale lock at the same moment
 // could in principle both take it: the take-over re-reads the file just
 // before removing it, which narrows but does not close that window.
+//
+// The lock file is created with a create-if-absent write (Store.Write),
+// so on an object store it is taken with If-None-Match like a manifest.
 func AcquireLock(path string, now time.Time) (*Lock, *LockHolder, error) {
+	st, key, err := Locate(path)
+	if err != nil {
+		return nil, nil, err
+	}
 	host, err := os.Hostname()
 	if err != nil {
 		return nil, nil, pathError("lock", path, fmt.Errorf("host name: %w", err))
@@ -52,25 +62,30 @@ func AcquireLock(path string, now time.Time) (*Lock, *LockHolder, error) {
 	}
 	content = append(content, '\n')
 	created := ""
-	for d := filepath.Dir(path); ; d = filepath.Dir(d) {
-		if _, err := os.Lstat(d); err == nil || filepath.Dir(d) == d {
-			break
+	if st == Local {
+		for d := filepath.Dir(key); ; d = filepath.Dir(d) {
+			if _, err := os.Lstat(d); err == nil || filepath.Dir(d) == d {
+				break
+			}
+			created = d
 		}
-		created = d
-	}
-	if err := os.MkdirAll(filepath.Dir(path), 0o755); err != nil {
-		return nil, nil, pathError("lock", path, unwrapPath(err))
+		if err := os.MkdirAll(filepath.Dir(key), 0o755); err != nil {
+			return nil, nil, pathError("lock", path, unwrapPath(err))
+		}
 	}
 	var stale *LockHolder
 	for attempt := 0; ; attempt++ {
-		err := createExclusive(path, content)
+		_, _, err := st.Write(background, key, true, func(w io.Writer) error {
+			_, err := w.Write(content)
+			return err
+		})
 		if err == nil {
-			return &Lock{path: path, content: content, created: created}, stale, nil
+			return &Lock{st: st, key: key, path: path, content: content, created: created}, stale, nil
 		}
 		if !errors.Is(err, fs.ErrExist) {
-			return nil, nil, pathError("lock", path, err)
+			return nil, nil, pathError("lock", path, unwrapPath(err))
 		}
-		old, err := os.ReadFile(path)
+		old, err := readAll(background, st, key)
 		if errors.Is(err, fs.ErrNotExist) && attempt < 3 {
 			continue // released meanwhile
 		}
@@ -85,35 +100,14 @@ func AcquireLock(path string, now time.Time) (*Lock, *LockHolder, error) {
 			return nil, nil, pathError("lock", path, fmt.Errorf("%w: held by pid %d on host %s since %s", ErrLocked, h.PID, h.Host, h.Started))
 		}
 		// Stale: remove it only if it is still the lock we judged.
-		if again, err := os.ReadFile(path); err != nil || !bytes.Equal(again, old) {
+		if again, err := readAll(background, st, key); err != nil || !bytes.Equal(again, old) {
 			continue
 		}
-		if err := os.Remove(path); err != nil && !errors.Is(err, fs.ErrNotExist) {
+		if err := st.Delete(background, key); err != nil {
 			return nil, nil, pathError("lock", path, unwrapPath(err))
 		}
 		stale = &h
 	}
-}
-
-// createExclusive creates path, failing with fs.ErrExist when it exists,
-// and writes and syncs content; on a write error the file is removed.
-func createExclusive(path string, content []byte) error {
-	f, err := os.OpenFile(path, os.O_WRONLY|os.O_CREATE|os.O_EXCL, outputMode)
-	if err != nil {
-		return unwrapPath(err)
-	}
-	_, err = f.Write(content)
-	if err == nil {
-		err = f.Sync()
-	}
-	if cerr := f.Close(); err == nil {
-		err = cerr
-	}
-	if err != nil {
-		_ = os.Remove(path) // the write's error is the one to report
-		return unwrapPath(err)
-	}
-	return nil
 }
 
 // Path is the lock file's path.
@@ -128,7 +122,7 @@ func (l *Lock) Release() error {
 		return nil
 	}
 	defer func() { l.content = nil }()
-	cur, err := os.ReadFile(l.path)
+	cur, err := readAll(background, l.st, l.key)
 	if errors.Is(err, fs.ErrNotExist) {
 		return nil
 	}
@@ -138,12 +132,12 @@ func (l *Lock) Release() error {
 	if !bytes.Equal(cur, l.content) {
 		return nil // not ours any more; leave it to its holder
 	}
-	if err := Remove(l.path); err != nil {
+	if err := l.st.Delete(background, l.key); err != nil {
 		return err
 	}
 	if l.created != "" {
 		// os.Remove fails on a folder that is not empty, which ends the climb.
-		for d := filepath.Dir(l.path); os.Remove(d) == nil && d != l.created; {
+		for d := filepath.Dir(l.key); os.Remove(d) == nil && d != l.created; {
 			d = filepath.Dir(d)
 		}
 	}

@@ -9,7 +9,6 @@ import (
 	"fmt"
 	"io"
 	"io/fs"
-	"os"
 
 	"github.com/apache/arrow/go/v17/arrow"
 	"github.com/apache/arrow/go/v17/arrow/array"
@@ -42,7 +41,7 @@ const arrowSchemaKey = "ARROW:schema"
 // open one per goroutine.
 type Reader struct {
 	path   string
-	f      *os.File
+	obj    Object
 	pr     *file.Reader
 	fr     *pqarrow.FileReader
 	schema *arrow.Schema
@@ -50,27 +49,31 @@ type Reader struct {
 	footer string
 }
 
-// Open opens a Parquet file and reads its footer. Column data is read later,
-// by Records, with mem. A file that is not Parquet (too short, no magic
-// bytes, undecodable footer) gives an error wrapping ErrNotParquet that
-// reads "open path: parquet: ...".
+// Open opens a Parquet file (a path or location) and reads its footer.
+// Column data is read later, by Records, with mem. A file that is not
+// Parquet (too short, no magic bytes, undecodable footer) gives an error
+// wrapping ErrNotParquet that reads "open path: parquet: ...".
 func Open(path string, mem memory.Allocator) (*Reader, error) {
 	if mem == nil {
 		mem = memory.DefaultAllocator
 	}
-	f, err := os.Open(path)
+	st, key, err := Locate(path)
 	if err != nil {
 		return nil, err
 	}
-	r, err := newReader(path, f, mem)
+	obj, err := st.Open(background, key)
 	if err != nil {
-		f.Close()
+		return nil, err
+	}
+	r, err := newReader(path, obj, mem)
+	if err != nil {
+		obj.Close()
 		return nil, pathError("open", path, err)
 	}
 	return r, nil
 }
 
-func newReader(path string, f *os.File, mem memory.Allocator) (r *Reader, err error) {
+func newReader(path string, obj Object, mem memory.Allocator) (r *Reader, err error) {
 	// A corrupt footer can make the thrift decoder or the schema
 	// conversion panic; a bad input file must not take the process down.
 	defer func() {
@@ -79,9 +82,12 @@ func newReader(path string, f *os.File, mem memory.Allocator) (r *Reader, err er
 		}
 	}()
 	props := parquet.NewReaderProperties(mem)
-	props.BufferedStreamEnabled = bufferedStreams
+	// A remote object is read a whole column chunk per request; buffered
+	// streams would make one request per buffer and column.
+	_, whole := obj.(wholeChunkReader)
+	props.BufferedStreamEnabled = bufferedStreams && !whole
 	props.BufferSize = streamBufferSize
-	pr, err := file.NewParquetReader(f, file.WithReadProps(props))
+	pr, err := file.NewParquetReader(io.NewSectionReader(obj, 0, obj.Size()), file.WithReadProps(props))
 	if err != nil {
 		return nil, classifyOpen(err)
 	}
@@ -94,13 +100,13 @@ func newReader(path string, f *os.File, mem memory.Allocator) (r *Reader, err er
 		return nil, err
 	}
 	schema = stripFieldIDs(schema)
-	footer, err := footerChecksum(f)
+	footer, err := footerChecksum(obj)
 	if err != nil {
 		return nil, err
 	}
 	return &Reader{
 		path:   path,
-		f:      f,
+		obj:    obj,
 		pr:     pr,
 		fr:     fr,
 		schema: schema,
@@ -125,12 +131,8 @@ func classifyOpen(err error) error {
 // closing magic "PAR1" (Apache Parquet format specification, "File
 // format"). The Parquet reader has just read these bytes, so the two small
 // reads are normally served from the page cache.
-func footerChecksum(f *os.File) (string, error) {
-	st, err := f.Stat()
-	if err != nil {
-		return "", err
-	}
-	size := st.Size()
+func footerChecksum(f Object) (string, error) {
+	size := f.Size()
 	var tail [8]byte
 	if size < int64(len(tail)) {
 		return "", &classified{ErrNotParquet, errors.New("parquet: file too small for a footer")}
@@ -284,8 +286,11 @@ func (r *Reader) Close() error {
 	if r.pr == nil {
 		return nil
 	}
-	err := r.pr.Close() // closes r.f
-	r.pr, r.fr, r.f = nil, nil, nil
+	err := r.pr.Close()
+	if cerr := r.obj.Close(); err == nil {
+		err = cerr
+	}
+	r.pr, r.fr, r.obj = nil, nil, nil
 	return err
 }
 

@@ -11,7 +11,17 @@ import (
 // For a path that does not exist yet, the nearest existing ancestor is
 // resolved and the missing tail joined back on, so that an output about to
 // be created can be compared with an input.
-func ResolvePath(p string) (string, error) {
+//
+// An s3:// location is returned cleaned ("s3://b/x/../y" is "s3://b/y"),
+// and a file:// location resolves as its path.
+func ResolvePath(loc string) (string, error) {
+	if IsRemote(loc) {
+		return Join(loc), nil
+	}
+	_, p, err := Locate(loc)
+	if err != nil {
+		return "", err
+	}
 	abs, err := filepath.Abs(p)
 	if err != nil {
 		return "", fmt.Errorf("resolve %s: %w", p, err)

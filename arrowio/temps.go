@@ -1,6 +1,7 @@
 package arrowio
 
 import (
+	"context"
 	"errors"
 	"io/fs"
 	"os"
@@ -11,7 +12,21 @@ import (
 // (regular files named like ".<name>.tmp-<random>", the names the atomic
 // writers use) and reports how many it removed. Symbolic links below
 // root are not followed. A missing root holds no temporary files and is not an error.
-func RemoveTemps(root string) (int, error) {
+//
+// On an object store writes leave no temporary objects; there it aborts
+// the incomplete multipart uploads below root instead, where the store
+// can list them.
+func RemoveTemps(loc string) (int, error) {
+	st, root, err := Locate(loc)
+	if err != nil {
+		return 0, err
+	}
+	if st != Local {
+		if a, ok := st.(uploadAborter); ok {
+			return a.abortUploads(background, root)
+		}
+		return 0, nil
+	}
 	if _, err := os.Lstat(root); errors.Is(err, fs.ErrNotExist) {
 		return 0, nil
 	}
@@ -35,4 +50,10 @@ func RemoveTemps(root string) (int, error) {
 		return nil
 	})
 	return n, err
+}
+
+// uploadAborter is implemented by stores whose interrupted uploads leave
+// state behind (S3 multipart uploads).
+type uploadAborter interface {
+	abortUploads(ctx context.Context, prefix string) (int, error)
 }

@@ -4,7 +4,6 @@ import (
 	"context"
 	"fmt"
 	"io"
-	"os"
 	"slices"
 
 	"github.com/apache/arrow/go/v17/arrow"
@@ -146,9 +145,13 @@ func WriteParquetAtomic(ctx context.Context, path string, schema *arrow.Schema, 
 	}
 	slices.Sort(keys)
 
+	st, key, err := Locate(path)
+	if err != nil {
+		return Written{}, err
+	}
 	var rows int64
-	n, sum, err := writeAtomic(path, false, func(w io.Writer) error {
-		r, err := writeParquet(ctx, w, schema, props, arrowProps, keys, opts.Metadata, fill)
+	n, sum, err := st.Write(ctx, key, false, func(w io.Writer) error {
+		r, err := writeParquet(ctx, &stickyWriter{w: w}, schema, props, arrowProps, keys, opts.Metadata, fill)
 		if err == nil || err == context.Cause(ctx) {
 			rows = r
 			return err
@@ -159,7 +162,7 @@ func WriteParquetAtomic(ctx context.Context, path string, schema *arrow.Schema, 
 		return Written{}, err
 	}
 	if invariants.Enabled {
-		checkWritten(path, rows, n)
+		checkWritten(st, key, path, rows, n)
 	}
 	return Written{Rows: rows, Bytes: n, SHA256: sum}, nil
 }
@@ -168,16 +171,15 @@ func WriteParquetAtomic(ctx context.Context, path string, schema *arrow.Schema, 
 // sink failures (the magic bytes, page writes); when w has recorded an I/O
 // error such a panic is that error and is returned as one. Any other panic
 // is a bug and is re-raised after the caller's cleanup runs.
-func writeParquet(ctx context.Context, w io.Writer, schema *arrow.Schema, props *parquet.WriterProperties, arrowProps pqarrow.ArrowWriterProperties, keys []string, meta map[string]string, fill func(*pqarrow.FileWriter) error) (rows int64, err error) {
-	tw, _ := w.(*teeWriter)
+func writeParquet(ctx context.Context, w *stickyWriter, schema *arrow.Schema, props *parquet.WriterProperties, arrowProps pqarrow.ArrowWriterProperties, keys []string, meta map[string]string, fill func(*pqarrow.FileWriter) error) (rows int64, err error) {
 	var fw *pqarrow.FileWriter
 	defer func() {
 		if p := recover(); p != nil {
-			if tw == nil || tw.err == nil {
+			if w.err == nil {
 				panic(p)
 			}
 			closeQuietly(fw)
-			rows, err = 0, tw.err
+			rows, err = 0, w.err
 		}
 	}()
 	fw, err = pqarrow.NewFileWriter(schema, w, props, arrowProps)
@@ -206,20 +208,44 @@ func writeParquet(ctx context.Context, w io.Writer, schema *arrow.Schema, props 
 	if err := fw.Close(); err != nil {
 		return 0, err
 	}
-	// file.Writer.Close can drop an error from writing the footer; the tee
-	// writer keeps it, and writeAtomic checks it after this returns.
+	// file.Writer.Close can drop an error from writing the footer; the
+	// sticky writer keeps it.
+	if w.err != nil {
+		return 0, w.err
+	}
 	return int64(fw.NumRows()), nil
+}
+
+// stickyWriter keeps the first error of w and returns it from every later
+// Write, because the Parquet writer does not report every failure it sees
+// (and panics on some). It has no Close method: pqarrow's FileWriter.Close
+// closes a sink that is an io.Closer.
+type stickyWriter struct {
+	w   io.Writer
+	err error
+}
+
+func (s *stickyWriter) Write(p []byte) (int, error) {
+	if s.err != nil {
+		return 0, s.err
+	}
+	n, err := s.w.Write(p)
+	if err == nil && n < len(p) {
+		err = io.ErrShortWrite
+	}
+	s.err = err
+	return n, err
 }
 
 // checkWritten re-reads the committed file's size and footer and panics
 // if they disagree with what the writer counted.
-func checkWritten(path string, rows, n int64) {
-	st, err := os.Stat(path)
+func checkWritten(st Store, key, path string, rows, n int64) {
+	info, err := st.Stat(background, key)
 	if err != nil {
 		panic(fmt.Sprintf("arrowio: committed %s but cannot stat it: %v", path, err))
 	}
-	if st.Size() != n {
-		panic(fmt.Sprintf("arrowio: wrote %d bytes to %s, stat says %d", n, path, st.Size()))
+	if info.Size != n {
+		panic(fmt.Sprintf("arrowio: wrote %d bytes to %s, stat says %d", n, path, info.Size))
 	}
 	got, _, _, err := ReadFooter(path)
 	if err != nil || got != rows {

@@ -136,7 +136,7 @@ func TestHashFileErrors(t *testing.T) {
 	if _, _, err := HashFile(missing); !errors.Is(err, fs.ErrNotExist) || !strings.Contains(err.Error(), missing) {
 		t.Errorf("missing: %v", err)
 	}
-	if _, _, err := HashFile(dir); err == nil || !strings.HasPrefix(err.Error(), "read "+dir+": ") {
+	if _, _, err := HashFile(dir); err == nil || !strings.HasPrefix(err.Error(), "open "+dir+": ") {
 		t.Errorf("folder: %v", err)
 	}
 	empty := filepath.Join(dir, "e")
