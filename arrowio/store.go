@@ -119,7 +119,7 @@ func Locate(loc string) (Store, string, error) {
 		if bucket == "" {
 			return nil, "", fmt.Errorf("%s: want s3://bucket/key", loc)
 		}
-		st, err := s3Store(bucket)
+		st, err := bucketStore(bucket)
 		if err != nil {
 			return nil, "", fmt.Errorf("%s: %w", loc, err)
 		}
@@ -137,7 +137,7 @@ func Locate(loc string) (Store, string, error) {
 	return Local, loc, nil
 }
 
-func s3Store(bucket string) (Store, error) {
+func bucketStore(bucket string) (Store, error) {
 	s3mu.Lock()
 	defer s3mu.Unlock()
 	if st, ok := s3buckets[bucket]; ok {
