@@ -30,6 +30,11 @@ var (
 // called name; RemoveTemps recognises the names it produces.
 func tempPattern(name string) string { return "." + name + ".tmp-*" }
 
+// IsTempName reports whether a base name is one of the temporary names
+// this package writes (and RemoveTemps removes): a file being written, or
+// a start-up probe (CheckConditionalCreate).
+func IsTempName(name string) bool { return isTempName(name) }
+
 // isTempName reports whether a base name is one tempPattern produces.
 func isTempName(name string) bool {
 	ok, _ := filepath.Match(".?*.tmp-*", name)

@@ -57,3 +57,43 @@ func RemoveTemps(loc string) (int, error) {
 type uploadAborter interface {
 	abortUploads(ctx context.Context, prefix string) (int, error)
 }
+
+// RemoveEmptyDirs removes the empty folders below a local root (deepest
+// first; root itself stays), which an uncommitted run's removed outputs
+// leave behind. Object stores have no folders; there it does nothing.
+func RemoveEmptyDirs(loc string) error {
+	st, root, err := Locate(loc)
+	if err != nil || st != Local {
+		return err
+	}
+	walkRoot, err := filepath.EvalSymlinks(root)
+	if errors.Is(err, fs.ErrNotExist) {
+		return nil
+	}
+	if err != nil {
+		return pathError("clean", loc, unwrapPath(err))
+	}
+	var dirs []string
+	err = filepath.WalkDir(walkRoot, func(p string, d fs.DirEntry, err error) error {
+		if err != nil {
+			return err
+		}
+		if d.IsDir() && p != walkRoot {
+			dirs = append(dirs, p)
+		}
+		return nil
+	})
+	if err != nil {
+		return pathError("clean", loc, unwrapPath(err))
+	}
+	// WalkDir visits parents before children; remove in reverse.
+	for i := len(dirs) - 1; i >= 0; i-- {
+		entries, err := os.ReadDir(dirs[i])
+		if err == nil && len(entries) == 0 {
+			if err := os.Remove(dirs[i]); err != nil && !errors.Is(err, fs.ErrNotExist) {
+				return pathError("clean", dirs[i], unwrapPath(err))
+			}
+		}
+	}
+	return nil
+}

@@ -6,10 +6,12 @@ import (
 	"crypto/sha256"
 	"encoding/hex"
 	"errors"
+	"io"
 	"io/fs"
 	"os"
 	"path/filepath"
 	"strings"
+	"syscall"
 	"testing"
 
 	"github.com/apache/arrow/go/v17/arrow/memory"
@@ -146,5 +148,50 @@ func TestHashFileErrors(t *testing.T) {
 	// SHA-256 of the empty string, FIPS 180-4 test vector (from memory).
 	if n, sum, err := HashFile(empty); err != nil || n != 0 || sum != "e3b0c44298fc1c149afbf4c8996fb92427ae41e4649b934ca495991b7852b855" {
 		t.Errorf("empty: %d %s %v", n, sum, err)
+	}
+}
+
+// TestCreateFile checks that a create-only-if-absent write refuses an
+// existing file and leaves it unchanged, and that the local store passes
+// the start-up probe.
+func TestCreateFile(t *testing.T) {
+	dir := t.TempDir()
+	path := filepath.Join(dir, "sub", "m.json")
+	put := func(s string) error {
+		return CreateFile(path, func(w io.Writer) error { _, err := io.WriteString(w, s); return err })
+	}
+	if err := put("one"); err != nil {
+		t.Fatal(err)
+	}
+	if err := put("two"); !errors.Is(err, fs.ErrExist) || !strings.Contains(err.Error(), path) {
+		t.Fatalf("second create: %v; want fs.ErrExist naming %s", err, path)
+	}
+	if b, _ := os.ReadFile(path); string(b) != "one" {
+		t.Errorf("content %q after a refused create; want %q", b, "one")
+	}
+	entries, _ := os.ReadDir(filepath.Dir(path))
+	if len(entries) != 1 {
+		t.Errorf("folder holds %d entries after a refused create; want only the file", len(entries))
+	}
+	if err := CheckConditionalCreate(dir); err != nil {
+		t.Fatal(err)
+	}
+	if names, _, _ := ListDir(dir); len(names) != 1 {
+		t.Errorf("probe left behind: %v", names)
+	}
+}
+
+// TestCheckConditionalCreateRefusesLinklessFS checks that a store whose
+// create-if-absent fails for another reason (here: link(2) not permitted,
+// as on file systems without hard links) fails the start-up probe.
+func TestCheckConditionalCreateRefusesLinklessFS(t *testing.T) {
+	defer func(old func(string, string) error) { link = old }(link)
+	link = func(string, string) error { return &os.LinkError{Op: "link", Err: syscall.EPERM} }
+	dir := t.TempDir()
+	if err := CheckConditionalCreate(dir); err == nil || !strings.Contains(err.Error(), dir) {
+		t.Fatalf("err = %v; want a failure naming %s", err, dir)
+	}
+	if names, _, _ := ListDir(dir); len(names) != 0 {
+		t.Errorf("left behind: %v", names)
 	}
 }
