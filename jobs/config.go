@@ -54,8 +54,11 @@ type Config struct {
 	Float32     bool
 	InfPolicy   InfPolicy
 	Overwrite   bool
-	BatchRows   int64
-	Fit         FitFilter // inputs whose statistics define the parameters (all when empty)
+	// SkipCommitCheck skips the start-up check that the output's store
+	// refuses a second create of the same object (see checkCommitSupport).
+	SkipCommitCheck bool
+	BatchRows       int64
+	Fit             FitFilter // inputs whose statistics define the parameters (all when empty)
 
 	StatsPath  string // measure: where the statistics file goes
 	ParamsPath string // apply, invert: manifest or statistics file to take parameters from
@@ -138,7 +141,7 @@ func Load(jobPath string, o Overrides) (Config, error) {
 	// and its data can move together.
 	for _, p := range []*string{&jf.Input, &jf.Output} {
 		if *p != "" && !filepath.IsAbs(*p) && !arrowio.HasScheme(*p) {
-			*p = filepath.Join(filepath.Dir(jobPath), *p)
+			*p = arrowio.Join(arrowio.Dir(jobPath), *p)
 		}
 	}
 	cfg := Config{Input: jf.Input, Output: jf.Output, Overwrite: o.Overwrite, BatchRows: DefaultBatchRows, Now: time.Now, Out: io.Discard}

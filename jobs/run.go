@@ -5,8 +5,10 @@ import (
 	"context"
 	"crypto/sha256"
 	"encoding/hex"
+	"errors"
 	"fmt"
 	"io"
+	"io/fs"
 	"path/filepath"
 	"runtime"
 	"runtime/debug"
@@ -86,10 +88,27 @@ func begin(cfg *Config, command string, writes bool, required ...string) (log *r
 		unlock()
 		return log.done(err)
 	}
+	if err := checkCommitSupport(cfg); err != nil {
+		return nil, nil, end(err)
+	}
 	if err := checkOutput(cfg); err != nil {
 		return nil, nil, end(err)
 	}
 	return log, end, nil
+}
+
+// checkCommitSupport makes sure the output's store refuses a second
+// create of the same object, on which the commit relies (writeManifest),
+// unless the user opted out.
+func checkCommitSupport(cfg *Config) error {
+	if cfg.SkipCommitCheck {
+		return nil
+	}
+	err := arrowio.CheckConditionalCreate(cfg.Output)
+	if errors.Is(err, arrowio.ErrNoConditionalCreate) {
+		return fmt.Errorf("%w; two runs could then both commit %s: use a store that honours If-None-Match, or give --skip-commit-check if only one run at a time writes there", err, cfg.Output)
+	}
+	return err
 }
 
 // measureAll is pass one of run and measure: discovery, the fit slice and
@@ -136,7 +155,7 @@ func Measure(ctx context.Context, cfg Config) (err error) {
 		m.Inputs = append(m.Inputs, p.input(i, results[i]))
 	}
 	log.sum.Warnings = countWarnings(m.Columns)
-	if err := writeManifest(cfg.StatsPath, m); err != nil {
+	if err := writeStatistics(cfg.StatsPath, m); err != nil {
 		return err
 	}
 	fmt.Fprintf(cfg.Out, "measured %d columns over %d of %d files; statistics in %s\n",
@@ -345,7 +364,7 @@ func checkOutput(cfg *Config) error {
 	}
 	has := make(map[string]bool, len(names))
 	for _, n := range names {
-		if n != lockName && n != cacheDirName {
+		if n != lockName && n != cacheDirName && !arrowio.IsTempName(n) {
 			has[n] = true
 		}
 	}
@@ -465,6 +484,20 @@ func (p *plan) commit(ctx context.Context, cfg *Config, m *manifests.Manifest, o
 	return nil
 }
 
+// writeManifest commits a dataset: it creates path only if nothing is
+// there (arrowio.CreateFile), so that of two runs that reach their commit
+// at once only one succeeds. The earlier manifest of a dataset being
+// replaced was removed by prepareOutput.
 func writeManifest(path string, m *manifests.Manifest) error {
+	err := arrowio.CreateFile(path, func(w io.Writer) error { return manifests.Encode(w, m) })
+	if errors.Is(err, fs.ErrExist) {
+		return fmt.Errorf("%w: %s appeared while this run was writing: another run committed this output first; nothing of this run is committed: %w", ErrOutputNotEmpty, path, err)
+	}
+	return err
+}
+
+// writeStatistics writes a statistics file (measure, merge), replacing
+// an earlier one atomically.
+func writeStatistics(path string, m *manifests.Manifest) error {
 	return arrowio.WriteFileAtomic(path, func(w io.Writer) error { return manifests.Encode(w, m) })
 }

@@ -192,6 +192,7 @@ func newApp() *cli.App {
 			},
 		},
 	}
+	addStorage(app)
 	for _, cmd := range app.Commands {
 		cmd.Description = exitCodesHelp
 		cmd.OnUsageError = onUsageError
@@ -242,5 +243,6 @@ func config(c *cli.Context) (jobs.Config, error) {
 	cfg.Version, cfg.Out, cfg.Log = version, c.App.Writer, c.App.ErrWriter
 	cfg.CacheDir, cfg.NoCache = c.String(cacheFlag.Name), c.Bool(noCacheFlag.Name)
 	cfg.LogFormat, cfg.MetricsPath = c.String(logFlag.Name), c.String(metricsFlag.Name)
+	cfg.SkipCommitCheck = c.Bool(skipCheckFlag.Name)
 	return cfg, nil
 }

@@ -1,0 +1,91 @@
+package jobs
+
+import (
+	"context"
+	"errors"
+	"fmt"
+
+	"github.com/lakescale/lakescale/arrowio"
+)
+
+// Clean removes what failed or killed runs left in an output tree, under
+// the output's lock so that no running run loses files:
+//
+//   - in every tree: temporary files of interrupted writes (on an object
+//     store, incomplete multipart uploads);
+//   - in an uncommitted tree (the _uncommitted marker and no manifest):
+//     every Parquet file, the marker and, on local disk, the folders left
+//     empty, so that the next run starts from an empty output.
+//
+// A committed dataset's files are never removed: with a manifest present
+// only temporary files (and a marker left by a run killed before it
+// changed anything) go. A tree without marker or manifest that holds
+// other files is refused, as run refuses it. The statistics cache stays.
+func Clean(ctx context.Context, cfg Config) (err error) {
+	if cfg.Output == "" {
+		return fmt.Errorf("%w: clean needs an output location", ErrUsage)
+	}
+	log, err := newRunLog(&cfg, "clean")
+	if err != nil {
+		return err
+	}
+	defer func() { err = log.done(err) }()
+	unlock, err := lockOutput(&cfg, log)
+	if err != nil {
+		return err
+	}
+	defer unlock()
+
+	names, exists, err := arrowio.ListDir(cfg.Output)
+	if err != nil {
+		return err
+	}
+	has := make(map[string]bool, len(names))
+	for _, n := range names {
+		if n != lockName && n != cacheDirName && !arrowio.IsTempName(n) {
+			has[n] = true
+		}
+	}
+	if !exists {
+		fmt.Fprintf(cfg.Out, "nothing to clean in %s\n", cfg.Output)
+		return nil
+	}
+	if len(has) > 0 && !has[ManifestName] && !has[markerName] {
+		return fmt.Errorf("%w: %s holds files lakescale did not write (no %s and no %s); nothing removed", ErrOutputNotEmpty, cfg.Output, ManifestName, markerName)
+	}
+	temps, err := arrowio.RemoveTemps(cfg.Output)
+	if err != nil {
+		return err
+	}
+	removed := 0
+	if !has[ManifestName] {
+		files, err := arrowio.Discover(cfg.Output)
+		if err != nil && !errors.Is(err, arrowio.ErrNoInputs) {
+			return err
+		}
+		for _, f := range files {
+			if err := context.Cause(ctx); err != nil {
+				return err
+			}
+			if err := arrowio.Remove(f.Abs); err != nil {
+				return err
+			}
+			removed++
+		}
+	}
+	if has[markerName] {
+		if err := arrowio.Remove(arrowio.Join(cfg.Output, markerName)); err != nil {
+			return err
+		}
+	}
+	if err := arrowio.RemoveEmptyDirs(cfg.Output); err != nil {
+		return err
+	}
+	state := "committed dataset kept"
+	if !has[ManifestName] {
+		state = "uncommitted run"
+	}
+	fmt.Fprintf(cfg.Out, "removed %d output files and %d temporary files from %s (%s)\n", removed, temps, cfg.Output, state)
+	log.phase("clean", "removed", removed, "temporary", temps)
+	return nil
+}
