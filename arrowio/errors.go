@@ -41,3 +41,7 @@ type classified struct {
 
 func (c *classified) Error() string   { return c.err.Error() }
 func (c *classified) Unwrap() []error { return []error{c.sentinel, c.err} }
+
+// ErrExist is what a refused create-only-if-absent write (CreateFile)
+// wraps: fs.ErrExist, re-exported so that callers need not import io/fs.
+var ErrExist = fs.ErrExist

@@ -8,7 +8,6 @@ import (
 	"errors"
 	"fmt"
 	"io"
-	"io/fs"
 	"path/filepath"
 	"runtime"
 	"runtime/debug"
@@ -490,7 +489,7 @@ func (p *plan) commit(ctx context.Context, cfg *Config, m *manifests.Manifest, o
 // replaced was removed by prepareOutput.
 func writeManifest(path string, m *manifests.Manifest) error {
 	err := arrowio.CreateFile(path, func(w io.Writer) error { return manifests.Encode(w, m) })
-	if errors.Is(err, fs.ErrExist) {
+	if errors.Is(err, arrowio.ErrExist) {
 		return fmt.Errorf("%w: %s appeared while this run was writing: another run committed this output first; nothing of this run is committed: %w", ErrOutputNotEmpty, path, err)
 	}
 	return err
