@@ -55,6 +55,11 @@ var nistDir = func() string {
 //	check-invert-values MANIFEST COLUMN IN OUT
 //	check-diff OLD NEW REPORT
 //	json-lines FILE KEY=VALUE...
+//	s3-server [-no-conditional] BUCKET...   (see s3_cmds_test.go)
+//	s3-put DIR s3://bucket/prefix
+//	s3-get s3://bucket/prefix DIR
+//	s3-ls s3://bucket/prefix
+//	s3-rm s3://bucket/key...
 func TestScripts(t *testing.T) {
 	testscript.Run(t, testscript.Params{
 		Dir:                 filepath.Join("testdata", "script"),
@@ -81,6 +86,11 @@ func TestScripts(t *testing.T) {
 			"check-invert-values": cmdCheckInvertValues,
 			"check-diff":          cmdCheckDiff,
 			"json-lines":          cmdJSONLines,
+			"s3-server":           cmdS3Server,
+			"s3-put":              cmdS3Put,
+			"s3-get":              cmdS3Get,
+			"s3-ls":               cmdS3Ls,
+			"s3-rm":               cmdS3Rm,
 		},
 		Setup: func(env *testscript.Env) error {
 			// A fixed zone keeps any local-time rendering stable.

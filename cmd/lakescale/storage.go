@@ -12,7 +12,7 @@ import (
 // locations.
 var (
 	s3EndpointFlag  = &cli.StringFlag{Name: "s3-endpoint", EnvVars: []string{"AWS_ENDPOINT_URL_S3", "AWS_ENDPOINT_URL"}, Usage: "`URL` of an S3-compatible object store for s3:// locations (default AWS)"}
-	s3PathStyleFlag = &cli.BoolFlag{Name: "s3-path-style", Usage: "address buckets as ENDPOINT/bucket/key (most S3-compatible stores need this)"}
+	s3PathStyleFlag = &cli.BoolFlag{Name: "s3-path-style", EnvVars: []string{"LAKESCALE_S3_PATH_STYLE"}, Usage: "address buckets as ENDPOINT/bucket/key (most S3-compatible stores need this)"}
 	s3RegionFlag    = &cli.StringFlag{Name: "s3-region", Usage: "`REGION` of s3:// locations (default: the AWS SDK's region chain, else us-east-1)"}
 	skipCheckFlag   = &cli.BoolFlag{Name: "skip-commit-check", Usage: "run even if the output's store does not refuse a second create of the same object (only safe when one run at a time writes there)"}
 )
