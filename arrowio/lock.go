@@ -20,13 +20,30 @@ type LockHolder struct {
 	PID     int    `json:"pid"`
 	Host    string `json:"host"`
 	Started string `json:"started"` // RFC 3339, UTC
+	// Expires ends the holder's lease unless it renews it (Lock.Renew)
+	// first; RFC 3339, UTC. Empty in lock files of earlier versions,
+	// which never expire.
+	Expires string `json:"expires,omitempty"`
 }
+
+// LockLease is how long a lock stays valid without renewal. A holder
+// renews it well before then (every LockLease/4 is the intent); a lock
+// whose lease ran out belongs to a run that died, on whatever host, and
+// is taken over. This is what frees the lock of a killed container or
+// batch job, whose host name is never seen again. Hosts' clocks must
+// agree to well within the lease.
+const LockLease = 10 * time.Minute
+
+// ErrLockLost is returned by Renew when the lock file no longer holds
+// this lock (it expired and another run took it over).
+var ErrLockLost = errors.New("lock lost: another run took it over")
 
 // Lock is a held lock file; Release gives it up.
 type Lock struct {
 	st      Store
 	key     string
 	path    string
+	holder  LockHolder
 	content []byte
 	created string // topmost folder AcquireLock created for the lock, or ""
 }
@@ -36,9 +53,10 @@ type Lock struct {
 // file records this process's pid, host name and start time.
 //
 // When path already exists and its holder is a process on this host that
-// no longer runs, the lock is stale: it is removed and taken, and the old
-// holder is returned. A holder on another host cannot be checked and so
-// is never taken over. Any other existing lock gives an error wrapping
+// no longer runs, or its lease expired before now (see LockLease), the
+// lock is stale: it is removed and taken, and the old holder is returned.
+// A holder on another host with a lease still running cannot be checked
+// and so is not taken over. Any other existing lock gives an error wrapping
 // ErrLocked that names the holder; it is returned at once, without
 // waiting. Two processes that find the same stale lock at the same moment
 // could in principle both take it: the take-over re-reads the file just
@@ -56,11 +74,10 @@ func AcquireLock(path string, now time.Time) (*Lock, *LockHolder, error) {
 		return nil, nil, pathError("lock", path, fmt.Errorf("host name: %w", err))
 	}
 	me := LockHolder{PID: os.Getpid(), Host: host, Started: now.UTC().Format(time.RFC3339)}
-	content, err := json.Marshal(me)
+	content, err := me.encode(now)
 	if err != nil {
 		return nil, nil, pathError("lock", path, err)
 	}
-	content = append(content, '\n')
 	created := ""
 	if st == Local {
 		for d := filepath.Dir(key); ; d = filepath.Dir(d) {
@@ -80,7 +97,7 @@ func AcquireLock(path string, now time.Time) (*Lock, *LockHolder, error) {
 			return err
 		})
 		if err == nil {
-			return &Lock{st: st, key: key, path: path, content: content, created: created}, stale, nil
+			return &Lock{st: st, key: key, path: path, holder: me, content: content, created: created}, stale, nil
 		}
 		if !errors.Is(err, fs.ErrExist) {
 			return nil, nil, pathError("lock", path, unwrapPath(err))
@@ -96,8 +113,13 @@ func AcquireLock(path string, now time.Time) (*Lock, *LockHolder, error) {
 		if err := json.Unmarshal(old, &h); err != nil || h.PID <= 0 || h.Host == "" {
 			return nil, nil, pathError("lock", path, fmt.Errorf("%w: unreadable lock file (%q); remove it if no lakescale run is writing here", ErrLocked, bytes.TrimSpace(old)))
 		}
-		if h.Host != host || processAlive(h.PID) || attempt >= 3 {
-			return nil, nil, pathError("lock", path, fmt.Errorf("%w: held by pid %d on host %s since %s", ErrLocked, h.PID, h.Host, h.Started))
+		dead := h.Host == host && !processAlive(h.PID)
+		if !dead && !h.expired(now) || attempt >= 3 {
+			until := ""
+			if h.Expires != "" {
+				until = ", lease until " + h.Expires
+			}
+			return nil, nil, pathError("lock", path, fmt.Errorf("%w: held by pid %d on host %s since %s%s", ErrLocked, h.PID, h.Host, h.Started, until))
 		}
 		// Stale: remove it only if it is still the lock we judged.
 		if again, err := readAll(background, st, key); err != nil || !bytes.Equal(again, old) {
@@ -108,6 +130,50 @@ func AcquireLock(path string, now time.Time) (*Lock, *LockHolder, error) {
 		}
 		stale = &h
 	}
+}
+
+// encode renders h with its lease starting at now.
+func (h LockHolder) encode(now time.Time) ([]byte, error) {
+	h.Expires = now.Add(LockLease).UTC().Format(time.RFC3339)
+	b, err := json.Marshal(h)
+	return append(b, '\n'), err
+}
+
+// expired reports whether h's lease ended before now. A lock without a
+// lease never expires.
+func (h LockHolder) expired(now time.Time) bool {
+	t, err := time.Parse(time.RFC3339, h.Expires)
+	return err == nil && t.Before(now)
+}
+
+// Renew extends the lease to now + LockLease. It re-reads the lock file
+// first and fails with ErrLockLost when the file no longer holds this
+// lock. The check and the write are two steps; the lease is long against
+// the renewal interval so that a renewal never races a take-over in
+// practice.
+func (l *Lock) Renew(now time.Time) error {
+	if l == nil || l.content == nil {
+		return nil
+	}
+	cur, err := readAll(background, l.st, l.key)
+	if err != nil && !errors.Is(err, fs.ErrNotExist) {
+		return pathError("renew lock", l.path, unwrapPath(err))
+	}
+	if err != nil || !bytes.Equal(cur, l.content) {
+		return pathError("renew lock", l.path, ErrLockLost)
+	}
+	content, err := l.holder.encode(now)
+	if err != nil {
+		return pathError("renew lock", l.path, err)
+	}
+	if _, _, err := l.st.Write(background, l.key, false, func(w io.Writer) error {
+		_, err := w.Write(content)
+		return err
+	}); err != nil {
+		return err
+	}
+	l.content = content
+	return nil
 }
 
 // Path is the lock file's path.

@@ -181,3 +181,68 @@ func TestLockRemovesCreatedFolders(t *testing.T) {
 		t.Fatalf("existing folder removed: %v", err)
 	}
 }
+
+// A lock whose lease ran out is taken over whatever its host; one whose
+// lease still runs is not.
+func TestLockLeaseExpiry(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "_lock")
+	old := LockHolder{PID: 7, Host: "pod-that-is-gone", Started: "2026-03-01T01:00:00Z", Expires: "2026-03-01T01:10:00Z"}
+	writeHolder(t, path, old)
+	_, _, err := AcquireLock(path, lockTime.Add(-time.Hour).Add(5*time.Minute)) // 01:05, lease runs
+	if !errors.Is(err, ErrLocked) || !strings.Contains(err.Error(), "lease until 2026-03-01T01:10:00Z") {
+		t.Fatalf("lock with a running lease: %v; want ErrLocked naming the lease", err)
+	}
+	l, stale, err := AcquireLock(path, lockTime) // 02:00, lease over
+	if err != nil {
+		t.Fatalf("expired lease not taken over: %v", err)
+	}
+	if stale == nil || *stale != old {
+		t.Fatalf("stale holder %+v, want %+v", stale, old)
+	}
+	var h LockHolder
+	data, _ := os.ReadFile(path)
+	if err := json.Unmarshal(data, &h); err != nil {
+		t.Fatal(err)
+	}
+	if want := lockTime.Add(LockLease).Format(time.RFC3339); h.Expires != want {
+		t.Errorf("new lease until %s, want %s", h.Expires, want)
+	}
+	if err := l.Release(); err != nil {
+		t.Fatal(err)
+	}
+}
+
+// Renew moves the lease on, and fails once another run took the lock.
+func TestLockRenew(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "_lock")
+	l, _, err := AcquireLock(path, lockTime)
+	if err != nil {
+		t.Fatal(err)
+	}
+	later := lockTime.Add(7 * time.Minute)
+	if err := l.Renew(later); err != nil {
+		t.Fatal(err)
+	}
+	var h LockHolder
+	data, _ := os.ReadFile(path)
+	if err := json.Unmarshal(data, &h); err != nil {
+		t.Fatal(err)
+	}
+	if want := later.Add(LockLease).Format(time.RFC3339); h.Expires != want || h.Started != "2026-03-01T02:00:00Z" {
+		t.Fatalf("after renew: %+v; want started kept and expires %s", h, want)
+	}
+	// Still ours: a second acquire is refused.
+	if _, _, err := AcquireLock(path, later); !errors.Is(err, ErrLocked) {
+		t.Fatalf("acquire of a renewed lock: %v", err)
+	}
+	writeHolder(t, path, LockHolder{PID: 1, Host: "elsewhere", Started: "2026-03-01T03:00:00Z"})
+	if err := l.Renew(later); !errors.Is(err, ErrLockLost) || !strings.Contains(err.Error(), path) {
+		t.Fatalf("renew after take-over: %v; want ErrLockLost naming %s", err, path)
+	}
+	if err := l.Release(); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := os.Stat(path); err != nil {
+		t.Fatalf("release removed the new holder's lock: %v", err)
+	}
+}

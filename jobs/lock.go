@@ -3,6 +3,7 @@ package jobs
 import (
 	"errors"
 	"fmt"
+	"time"
 
 	"github.com/lakescale/lakescale/arrowio"
 )
@@ -12,10 +13,17 @@ import (
 // foreign file.
 const lockName = "_lock"
 
+// lockRenewEvery is how often a held lock's lease is renewed: a quarter of
+// the lease, so that three renewals in a row may fail (a slow store)
+// before the lock could be taken over.
+var lockRenewEvery = arrowio.LockLease / 4
+
 // lockOutput takes the output's lock so that two overlapping runs cannot
 // both write and commit it; the second fails at once. A lock left by a
-// process of this host that no longer runs is taken over, with a note on
-// Out and a warning in the log. The returned function releases the lock.
+// process of this host that no longer runs, or one whose lease ran out (a
+// killed container or batch job), is taken over, with a note on Out and a
+// warning in the log. While held, the lease is renewed in the background.
+// The returned function stops the renewal and releases the lock.
 func lockOutput(cfg *Config, log *runLog) (func(), error) {
 	path := arrowio.Join(cfg.Output, lockName)
 	l, stale, err := arrowio.AcquireLock(path, cfg.Now())
@@ -29,5 +37,31 @@ func lockOutput(cfg *Config, log *runLog) (func(), error) {
 		_, _ = fmt.Fprintf(cfg.Out, "took over the stale lock of pid %d on host %s (started %s), which no longer runs\n", stale.PID, stale.Host, stale.Started)
 		log.warn("took over a stale lock", "pid", stale.PID, "host", stale.Host, "started", stale.Started)
 	}
-	return func() { _ = l.Release() }, nil
+	stop, done := make(chan struct{}), make(chan struct{})
+	go func() {
+		defer close(done)
+		t := time.NewTicker(lockRenewEvery)
+		defer t.Stop()
+		for {
+			select {
+			case <-stop:
+				return
+			case <-t.C:
+				if err := l.Renew(cfg.Now()); err != nil {
+					// The run goes on; its manifest is still created
+					// only if absent, so a second run cannot commit over
+					// it.
+					log.warn("could not renew the output lock", "error", err.Error())
+					if errors.Is(err, arrowio.ErrLockLost) {
+						return
+					}
+				}
+			}
+		}
+	}()
+	return func() {
+		close(stop)
+		<-done
+		_ = l.Release()
+	}, nil
 }

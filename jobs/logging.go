@@ -14,7 +14,8 @@ import (
 
 // runLog is one command's structured log (--log-format: a line per phase
 // and a final summary line, through log/slog) and its metrics file
-// (--metrics). Its methods are called from the command's goroutine only.
+// (--metrics). Its methods are called from the command's goroutine only,
+// except warn, which only writes a line and may be called from any.
 type runLog struct {
 	cfg     *Config
 	command string
