@@ -256,10 +256,7 @@ func (s *s3Bucket) Write(ctx context.Context, key string, ifAbsent bool, write f
 	done := make(chan error, 1)
 	go func() {
 		_, err := s.tm.UploadObject(ctx, &transfermanager.UploadObjectInput{Bucket: &s.bucket, Key: &key, Body: pr})
-		if err == nil {
-			err = io.ErrClosedPipe // the upload ended before write did
-		}
-		pr.CloseWithError(err)
+		pr.CloseWithError(err) // unblocks write if the upload failed
 		done <- err
 	}()
 	finished := false
@@ -283,7 +280,10 @@ func (s *s3Bucket) Write(ctx context.Context, key string, ifAbsent bool, write f
 		// Sending failed; that is the root cause of whatever write reports.
 		pw.CloseWithError(errWriteAborted)
 		finished = true
-		return 0, "", s.pathErr("write", key, <-done)
+		if err := <-done; err != nil {
+			return 0, "", s.pathErr("write", key, err)
+		}
+		return 0, "", s.pathErr("write", key, tw.err)
 	case werr != nil:
 		pw.CloseWithError(werr)
 		finished = true
@@ -292,7 +292,7 @@ func (s *s3Bucket) Write(ctx context.Context, key string, ifAbsent bool, write f
 	}
 	pw.Close()
 	finished = true
-	if err := <-done; err != io.ErrClosedPipe {
+	if err := <-done; err != nil {
 		return 0, "", s.pathErr("write", key, err)
 	}
 	return tw.n, tw.sum(), nil
