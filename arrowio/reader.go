@@ -42,6 +42,7 @@ const arrowSchemaKey = "ARROW:schema"
 type Reader struct {
 	path   string
 	obj    Object
+	hasher *seqHasher
 	pr     *file.Reader
 	fr     *pqarrow.FileReader
 	schema *arrow.Schema
@@ -65,12 +66,27 @@ func Open(path string, mem memory.Allocator) (*Reader, error) {
 	if err != nil {
 		return nil, err
 	}
-	r, err := newReader(path, obj, mem)
+	hs := newSeqHasher(obj)
+	r, err := newReader(path, hs, mem)
 	if err != nil {
 		obj.Close()
 		return nil, pathError("open", path, err)
 	}
+	r.hasher = hs
+	hs.start()
 	return r, nil
+}
+
+// Checksum returns the file's size and the SHA-256 (lowercase hex) of all
+// its bytes. The bytes Records read are hashed as they go by, in order;
+// Checksum reads only what they skipped (columns not read, the footer).
+// Call it after the last Records; reads made after it are not hashed.
+func (r *Reader) Checksum() (size int64, sum string, err error) {
+	size, sum, err = r.hasher.Sum()
+	if err != nil {
+		return 0, "", pathError("hash", r.path, unwrapPath(err))
+	}
+	return size, sum, nil
 }
 
 func newReader(path string, obj Object, mem memory.Allocator) (r *Reader, err error) {
@@ -85,6 +101,9 @@ func newReader(path string, obj Object, mem memory.Allocator) (r *Reader, err er
 	// A remote object is read a whole column chunk per request; buffered
 	// streams would make one request per buffer and column.
 	_, whole := obj.(wholeChunkReader)
+	if hs, ok := obj.(*seqHasher); ok {
+		whole = hs.wantsWholeChunks()
+	}
 	props.BufferedStreamEnabled = bufferedStreams && !whole
 	props.BufferSize = streamBufferSize
 	pr, err := file.NewParquetReader(io.NewSectionReader(obj, 0, obj.Size()), file.WithReadProps(props))

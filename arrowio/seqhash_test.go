@@ -1,0 +1,75 @@
+package arrowio
+
+import (
+	"context"
+	"crypto/sha256"
+	"encoding/hex"
+	"fmt"
+	"os"
+	"testing"
+
+	"github.com/apache/arrow/go/v17/arrow/memory"
+)
+
+// Reader.Checksum, hashed from the reads Records makes plus the gaps, is
+// the SHA-256 of the whole file (crypto/sha256 over os.ReadFile), whatever
+// columns and row groups were read, with buffered or whole-chunk reads.
+func TestReaderChecksum(t *testing.T) {
+	path := tempPath(t, "x.parquet")
+	writeRows(t, memory.DefaultAllocator, path, mixedRows(5000), 700, WriteOptions{RowGroupRows: 1200})
+	raw, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	s := sha256.Sum256(raw)
+	want := hex.EncodeToString(s[:])
+
+	for _, buffered := range []bool{true, false} {
+		for name, read := range map[string]struct {
+			cols []int
+			rgs  []int
+		}{
+			"nothing":            {nil, nil},
+			"all columns":        {nil, []int{0, 1, 2, 3, 4}},
+			"one column":         {[]int{2}, []int{0, 1, 2, 3, 4}},
+			"last column":        {[]int{3}, []int{0, 2, 4}},
+			"backwards":          {[]int{0, 3}, []int{4, 3, 1}},
+			"first row group":    {[]int{1}, []int{0}},
+			"two columns, twice": {[]int{1, 3}, []int{0, 1, 1, 0, 2}},
+		} {
+			t.Run(fmt.Sprintf("%s/buffered=%v", name, buffered), func(t *testing.T) {
+				defer func(b bool) { bufferedStreams = b }(bufferedStreams)
+				bufferedStreams = buffered
+				r, err := Open(path, memory.DefaultAllocator)
+				if err != nil {
+					t.Fatal(err)
+				}
+				defer r.Close()
+				for _, rg := range read.rgs {
+					rr, err := r.Records(context.Background(), rg, read.cols, 100)
+					if err != nil {
+						t.Fatal(err)
+					}
+					for rr.Next() {
+					}
+					if err := rr.Err(); err != nil {
+						t.Fatal(err)
+					}
+					rr.Release()
+				}
+				size, sum, err := r.Checksum()
+				if err != nil {
+					t.Fatal(err)
+				}
+				if size != int64(len(raw)) || sum != want {
+					t.Errorf("Checksum = %d %s; want %d %s", size, sum, len(raw), want)
+				}
+				// Reading every column of every row group leaves only the
+				// leading magic and the footer to read again.
+				if name == "all columns" && r.hasher.gaps > int64(len(raw))/10 {
+					t.Errorf("read %d of %d bytes a second time to hash them", r.hasher.gaps, len(raw))
+				}
+			})
+		}
+	}
+}
