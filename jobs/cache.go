@@ -72,6 +72,7 @@ const (
 	sourceMeasured  fileSource = iota // read and measured
 	sourceCached                      // taken from the cache
 	sourceDescribed                   // not selected by --fit: rows and hash only
+	sourceElsewhere                   // another shard's file: not read here
 )
 
 // origin is where a fileResult came from, for the log and the cache.

@@ -37,10 +37,38 @@ func forEachFile(ctx context.Context, workers int, n int, task func(ctx context.
 	return context.Cause(ctx)
 }
 
-// passOne computes every file's statistics; results are in file order.
+// measureFiles is the part of pass one that reads the inputs: discovery,
+// the fit slice and cache, and the statistics of every file, or with a
+// shard only of the files of its share (the others get results with
+// source sourceElsewhere).
+func measureFiles(ctx context.Context, cfg *Config, defCache string, log *runLog, sh *Shard) (*plan, []fileResult, error) {
+	p, err := discover(cfg.Input, cfg.Rules)
+	if err != nil {
+		return nil, nil, err
+	}
+	if err := p.nightly(cfg, defCache, log); err != nil {
+		return nil, nil, err
+	}
+	if sh != nil {
+		p.share = sh.of(p.Files)
+	}
+	results, err := passOne(ctx, cfg, p)
+	if err != nil {
+		return nil, nil, err
+	}
+	log.passOne(results)
+	return p, results, nil
+}
+
+// passOne computes the statistics of every file of the plan's share;
+// results are in file order.
 func passOne(ctx context.Context, cfg *Config, p *plan) ([]fileResult, error) {
 	results := make([]fileResult, len(p.Files))
 	err := forEachFile(ctx, cfg.Workers, len(p.Files), func(ctx context.Context, i int) error {
+		if !p.mine(i) {
+			results[i].Origin.Source = sourceElsewhere
+			return nil
+		}
 		res, err := measureFile(ctx, cfg, p, i)
 		if err != nil {
 			return fmt.Errorf("partition %s: %w", partitionName(p.Files[i]), err)

@@ -31,11 +31,15 @@ type written struct {
 	Outside []manifests.OutOfRange // per column, when the plan has bounds
 }
 
-// passTwo writes every input's scaled copy; results are in file order.
+// passTwo writes the scaled copy of every input of the plan's share;
+// results are in file order (zero for the files of other shards).
 // hashInputs asks it to hash inputs too (apply has no pass one).
 func passTwo(ctx context.Context, cfg *Config, p *plan, params []stats.Params, meta string, hashInputs bool) ([]written, error) {
 	results := make([]written, len(p.Files))
 	err := forEachFile(ctx, cfg.Workers, len(p.Files), func(ctx context.Context, i int) error {
+		if !p.mine(i) {
+			return nil
+		}
 		res, err := scaleFile(ctx, cfg, p, i, params, meta, hashInputs)
 		if err != nil {
 			return fmt.Errorf("partition %s: %w", partitionName(p.Files[i]), err)

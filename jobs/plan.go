@@ -32,6 +32,7 @@ type plan struct {
 
 	bounds   [][2]float64 // per column, fitted [min, max] to count values outside of; nil: no counting
 	inverted bool         // pass two maps back to original units (invert)
+	share    []bool       // files of this shard's share (sharded measure and apply); nil: every file
 }
 
 // partitionName is the Hive partition of a file as "k=v/k=v", or its path.

@@ -115,18 +115,10 @@ func checkCommitSupport(cfg *Config) error {
 // cache entries of the files measured (written once the statistics are
 // known to be good). defCache is the cache folder used without --cache.
 func measureAll(ctx context.Context, cfg *Config, defCache string, log *runLog) (*plan, []fileResult, []manifests.Column, []stats.Params, error) {
-	p, err := discover(cfg.Input, cfg.Rules)
+	p, results, err := measureFiles(ctx, cfg, defCache, log, nil)
 	if err != nil {
 		return nil, nil, nil, nil, err
 	}
-	if err := p.nightly(cfg, defCache, log); err != nil {
-		return nil, nil, nil, nil, err
-	}
-	results, err := passOne(ctx, cfg, p)
-	if err != nil {
-		return nil, nil, nil, nil, err
-	}
-	log.passOne(results)
 	cols, params, err := fitColumns(p, results)
 	if err != nil {
 		return nil, nil, nil, nil, err
@@ -171,28 +163,46 @@ func Apply(ctx context.Context, cfg Config) (err error) {
 		return err
 	}
 	defer func() { err = end(err) }()
-	raw, err := arrowio.ReadFile(cfg.ParamsPath)
+	p, params, m, err := applyPlan(&cfg)
 	if err != nil {
 		return err
+	}
+	if err := prepareOutput(&cfg); err != nil {
+		return err
+	}
+	outs, err := passTwo(ctx, &cfg, p, params, fileMeta(m), true)
+	if err != nil {
+		return err
+	}
+	log.passTwo(outs)
+	log.inputsOf(outs)
+	return p.commit(ctx, &cfg, m, outs, log)
+}
+
+// applyPlan reads apply's parameters document and discovers the inputs:
+// the plan (columns from the parameters, and their fitted bounds to count
+// values outside of), the parameters, and the manifest started with the
+// parameters' columns, rules and source.
+func applyPlan(cfg *Config) (*plan, []stats.Params, *manifests.Manifest, error) {
+	raw, err := arrowio.ReadFile(cfg.ParamsPath)
+	if err != nil {
+		return nil, nil, nil, err
 	}
 	src, err := manifests.Decode(bytes.NewReader(raw))
 	if err != nil {
-		return fmt.Errorf("%s: %w", cfg.ParamsPath, err)
+		return nil, nil, nil, fmt.Errorf("%s: %w", cfg.ParamsPath, err)
 	}
 	files, err := arrowio.Discover(cfg.Input)
 	if err != nil {
-		return err
+		return nil, nil, nil, err
 	}
 	p := &plan{Files: files, bounds: boundsOf(src.Columns)}
 	params := make([]stats.Params, len(src.Columns))
 	if err := p.columnsFrom(src); err != nil {
-		return err
+		return nil, nil, nil, err
 	}
 	for j, c := range src.Columns {
 		params[j] = stats.Params{Method: stats.Method(c.Method), Center: float64(c.Params.Center), Scale: float64(c.Params.Scale)}
-	}
-	if err := prepareOutput(&cfg); err != nil {
-		return err
 	}
 	m := cfg.newManifest(manifests.KindDataset, src.Columns)
 	m.Job.Settings.Rules = src.Job.Settings.Rules
@@ -201,13 +211,7 @@ func Apply(ctx context.Context, cfg Config) (err error) {
 	m.Job.SHA256 = m.Job.Settings.Digest()
 	sum := sha256.Sum256(raw)
 	m.ParamsSource = &manifests.ParamsSource{Path: filepath.ToSlash(cfg.ParamsPath), Kind: src.Kind, SHA256: hex.EncodeToString(sum[:])}
-	outs, err := passTwo(ctx, &cfg, p, params, fileMeta(m), true)
-	if err != nil {
-		return err
-	}
-	log.passTwo(outs)
-	log.inputsOf(outs)
-	return p.commit(ctx, &cfg, m, outs, log)
+	return p, params, m, nil
 }
 
 // columnsFrom selects the columns a parameters document names, checking

@@ -2,6 +2,7 @@ package main
 
 import (
 	"fmt"
+	"os"
 
 	"github.com/urfave/cli/v2"
 
@@ -41,6 +42,10 @@ var (
 	failOverFlag  = &cli.Float64Flag{Name: "fail-over", Usage: "exit 1 when a column's mean moved by more than `X` old standard deviations"}
 	invertColFlag = &cli.StringSliceFlag{Name: "columns", Usage: "map back the columns matching `PATTERN,...` (default every column of the parameters)"}
 	columnFlag    = &cli.StringFlag{Name: "column", Usage: "map back the numbers on stdin (one per line) for column `NAME`"}
+
+	shardFlag  = &cli.StringFlag{Name: "shard", Usage: "work on shard `I/N` of the inputs only (0 <= I < N), or env: I from JOB_COMPLETION_INDEX (Kubernetes indexed Job) or else SLURM_ARRAY_TASK_ID (Slurm job array), N from --shards"}
+	shardsFlag = &cli.IntFlag{Name: "shards", Usage: "number of shards `N`, with --shard env"}
+	workFlag   = &cli.StringFlag{Name: "work", Usage: "work `DIR` where the shards of one job leave their results for merge or commit"}
 )
 
 func newApp() *cli.App {
@@ -78,30 +83,72 @@ func newApp() *cli.App {
 				Name:  "measure",
 				Usage: "pass one only: write the merged statistics (and fitted parameters) to a file",
 				UsageText: "lakescale measure --input DIR --stats FILE [--job FILE] [--columns PATTERN,...] [--method M] [--std sample|population] [--workers N]\n" +
-					"    [--fit FILTER] [--cache DIR] [--no-cache] [--log-format text|json] [--metrics FILE]",
+					"    [--fit FILTER] [--cache DIR] [--no-cache] [--log-format text|json] [--metrics FILE]\n" +
+					"lakescale measure --input DIR --shard I/N|env [--shards N] --work DIR [same flags but --stats]   # one shard; then lakescale merge",
 				Flags: []cli.Flag{inputFlag, statsFlag, jobFlag, columnsFlag, excludeFlag, methodFlag, stdFlag, workersFlag, infFlag,
-					fitFlag, cacheFlag, noCacheFlag, logFlag, metricsFlag},
+					fitFlag, cacheFlag, noCacheFlag, logFlag, metricsFlag, shardFlag, shardsFlag, workFlag},
 				Action: func(c *cli.Context) error {
 					cfg, err := config(c)
 					if err != nil {
 						return err
 					}
 					cfg.StatsPath = c.String(statsFlag.Name)
+					if sh, err := shardOf(c); err != nil || sh != nil {
+						if err != nil {
+							return err
+						}
+						return jobs.MeasureShard(c.Context, cfg, *sh)
+					}
 					return jobs.Measure(c.Context, cfg)
 				},
 			},
 			{
-				Name:      "apply",
-				Usage:     "pass two only: write scaled copies with parameters from a manifest or statistics file",
-				UsageText: "lakescale apply --input DIR --output DIR --params FILE [--workers N] [--overwrite] [--log-format text|json] [--metrics FILE]",
-				Flags:     []cli.Flag{inputFlag, outputFlag, paramsFlag, jobFlag, workersFlag, overFlag, compFlag, typeFlag, infFlag, logFlag, metricsFlag},
+				Name:  "apply",
+				Usage: "pass two only: write scaled copies with parameters from a manifest or statistics file",
+				UsageText: "lakescale apply --input DIR --output DIR --params FILE [--workers N] [--overwrite] [--log-format text|json] [--metrics FILE]\n" +
+					"lakescale apply --input DIR --output DIR --params FILE --shard I/N|env [--shards N] --work DIR [--workers N]   # one shard; then lakescale commit",
+				Flags: []cli.Flag{inputFlag, outputFlag, paramsFlag, jobFlag, workersFlag, overFlag, compFlag, typeFlag, infFlag, logFlag, metricsFlag,
+					shardFlag, shardsFlag, workFlag},
 				Action: func(c *cli.Context) error {
 					cfg, err := config(c)
 					if err != nil {
 						return err
 					}
 					cfg.ParamsPath = c.String(paramsFlag.Name)
+					if sh, err := shardOf(c); err != nil || sh != nil {
+						if err != nil {
+							return err
+						}
+						return jobs.ApplyShard(c.Context, cfg, *sh)
+					}
 					return jobs.Apply(c.Context, cfg)
+				},
+			},
+			{
+				Name:      "merge",
+				Usage:     "combine the results of every measure shard into the statistics file one measure would write",
+				UsageText: "lakescale merge --work DIR --stats FILE [--log-format text|json] [--metrics FILE]",
+				Flags:     []cli.Flag{workFlag, statsFlag, logFlag, metricsFlag},
+				Action: func(c *cli.Context) error {
+					cfg, err := config(c)
+					if err != nil {
+						return err
+					}
+					cfg.StatsPath = c.String(statsFlag.Name)
+					return jobs.MergeShards(c.Context, cfg, c.String(workFlag.Name))
+				},
+			},
+			{
+				Name:      "commit",
+				Usage:     "check the outputs of every apply shard and write the manifest one apply would write",
+				UsageText: "lakescale commit --output DIR --work DIR [--log-format text|json] [--metrics FILE]",
+				Flags:     []cli.Flag{outputFlag, workFlag, logFlag, metricsFlag},
+				Action: func(c *cli.Context) error {
+					cfg, err := config(c)
+					if err != nil {
+						return err
+					}
+					return jobs.CommitShards(c.Context, cfg, c.String(workFlag.Name))
 				},
 			},
 			{
@@ -245,4 +292,21 @@ func config(c *cli.Context) (jobs.Config, error) {
 	cfg.LogFormat, cfg.MetricsPath = c.String(logFlag.Name), c.String(metricsFlag.Name)
 	cfg.SkipCommitCheck = c.Bool(skipCheckFlag.Name)
 	return cfg, nil
+}
+
+// shardOf resolves --shard, --shards and --work; nil when none is given.
+func shardOf(c *cli.Context) (*jobs.Shard, error) {
+	if !c.IsSet(shardFlag.Name) && !c.IsSet(shardsFlag.Name) && !c.IsSet(workFlag.Name) {
+		return nil, nil
+	}
+	var n *int
+	if c.IsSet(shardsFlag.Name) {
+		v := c.Int(shardsFlag.Name)
+		n = &v
+	}
+	sh, err := jobs.ParseShard(c.String(shardFlag.Name), n, c.String(workFlag.Name), os.Getenv)
+	if err != nil {
+		return nil, err
+	}
+	return &sh, nil
 }
