@@ -28,7 +28,7 @@ func lockOutput(cfg *Config, log *runLog) (func(), error) {
 	path := arrowio.Join(cfg.Output, lockName)
 	l, stale, err := arrowio.AcquireLock(path, cfg.Now())
 	if errors.Is(err, arrowio.ErrLocked) {
-		return nil, fmt.Errorf("output %s is in use by another run (remove %s only if that run is dead): %w", cfg.Output, path, err)
+		return nil, fmt.Errorf("output %s is in use by another run (a dead run's lock is taken over when its lease ends; remove %s sooner only if that run is dead): %w", cfg.Output, path, err)
 	}
 	if err != nil {
 		return nil, err
