@@ -368,7 +368,7 @@ func (p *plan) reuse(cfg *Config, i int, r *arrowio.Reader) (res fileResult, don
 		res.Origin = origin{Source: sourceCached, Cache: cacheHit, Footer: footer}
 		return res, true, nil
 	case !p.fits(i):
-		size, sum, err := arrowio.HashFile(f.Abs)
+		size, sum, err := r.Checksum()
 		if err != nil {
 			return fileResult{}, false, err
 		}

@@ -120,7 +120,8 @@ func measureFile(ctx context.Context, cfg *Config, p *plan, i int) (fileResult, 
 			}
 		}
 	}
-	size, sum, err := arrowio.HashFile(f.Abs)
+	// The bytes just read are hashed already; only the rest is read now.
+	size, sum, err := r.Checksum()
 	if err != nil {
 		return fileResult{}, err
 	}
