@@ -55,6 +55,7 @@ var nistDir = func() string {
 //	check-invert-values MANIFEST COLUMN IN OUT
 //	check-diff OLD NEW REPORT
 //	json-lines FILE KEY=VALUE...
+//	check-shards WORK measure|apply N
 //	s3-server [-no-conditional] BUCKET...   (see s3_cmds_test.go)
 //	s3-put DIR s3://bucket/prefix
 //	s3-get s3://bucket/prefix DIR
@@ -86,6 +87,7 @@ func TestScripts(t *testing.T) {
 			"check-invert-values": cmdCheckInvertValues,
 			"check-diff":          cmdCheckDiff,
 			"json-lines":          cmdJSONLines,
+			"check-shards":        cmdCheckShards,
 			"s3-server":           cmdS3Server,
 			"s3-put":              cmdS3Put,
 			"s3-get":              cmdS3Get,
