@@ -71,7 +71,7 @@ func committedParquet(dir string) int {
 func cmdInterrupt(ts *testscript.TestScript, neg bool, args []string) {
 	noNeg(ts, neg, "interrupt")
 	if len(args) < 4 {
-		ts.Fatalf("usage: interrupt INT|TERM|KILL WANT DIR|exists=PATH PROG [ARGS...]")
+		ts.Fatalf("usage: interrupt INT|TERM|KILL WANT DIR|exists=PATH|s3://bucket/prefix PROG [ARGS...]")
 	}
 	var sig os.Signal
 	switch args[0] {
@@ -88,11 +88,15 @@ func cmdInterrupt(ts *testscript.TestScript, neg bool, args []string) {
 	if path, ok := strings.CutPrefix(args[2], "exists="); ok {
 		ready = func() bool { return exists(ts.MkAbs(path)) }
 	}
+	if strings.HasPrefix(args[2], "s3://") {
+		ready = func() bool { return s3ParquetCount(ts, args[2]) > 0 }
+	}
 	prog, err := exec.LookPath(args[3]) // testscript put lakescale on this process's PATH
 	ts.Check(err)
 	cmd := exec.Command(prog, args[4:]...)
 	cmd.Dir = ts.MkAbs(".")
 	cmd.Env = append(os.Environ(), "PWD="+cmd.Dir)
+	cmd.Env = append(cmd.Env, s3Env(ts)...)
 	var stdout, stderr strings.Builder
 	cmd.Stdout, cmd.Stderr = &stdout, &stderr
 	ts.Check(cmd.Start())

@@ -57,7 +57,7 @@ func cmdS3Server(ts *testscript.TestScript, neg bool, args []string) {
 	}
 	srv := httptest.NewServer(h) // listens on 127.0.0.1
 	ts.Defer(srv.Close)
-	for k, v := range map[string]string{
+	for k, v := range map[string]string{ // the keys of s3EnvKeys
 		"AWS_ENDPOINT_URL":            srv.URL,
 		"LAKESCALE_S3_PATH_STYLE":     "true",
 		"AWS_ACCESS_KEY_ID":           "lakescale-test",
@@ -69,6 +69,36 @@ func cmdS3Server(ts *testscript.TestScript, neg bool, args []string) {
 	} {
 		ts.Setenv(k, v)
 	}
+}
+
+// s3EnvKeys are the variables s3-server sets.
+var s3EnvKeys = []string{
+	"AWS_ENDPOINT_URL", "LAKESCALE_S3_PATH_STYLE", "AWS_ACCESS_KEY_ID", "AWS_SECRET_ACCESS_KEY",
+	"AWS_REGION", "AWS_EC2_METADATA_DISABLED", "AWS_CONFIG_FILE", "AWS_SHARED_CREDENTIALS_FILE",
+}
+
+// s3Env returns s3-server's variables as KEY=VALUE, for programs that a
+// custom command starts itself (testscript's exec passes them already).
+func s3Env(ts *testscript.TestScript) []string {
+	var env []string
+	for _, k := range s3EnvKeys {
+		if v := ts.Getenv(k); v != "" {
+			env = append(env, k+"="+v)
+		}
+	}
+	return env
+}
+
+// s3ParquetCount counts the *.parquet objects below s3://bucket/prefix.
+func s3ParquetCount(ts *testscript.TestScript, uri string) int {
+	bucket, prefix := splitURI(ts, uri)
+	n := 0
+	for _, k := range s3Keys(ts, s3Client(ts), bucket, prefix) {
+		if strings.HasSuffix(k, ".parquet") {
+			n++
+		}
+	}
+	return n
 }
 
 // s3Client builds an SDK client for the script's server.
