@@ -93,8 +93,8 @@ func ParseShard(spec string, shards *int, work string, getenv func(string) strin
 		if shards == nil {
 			return usage("--shard env needs --shards N, the number of shards")
 		}
-		if *shards < 1 {
-			return usage("--shards %d: want at least 1", *shards)
+		if *shards < 1 || *shards > manifests.MaxShards {
+			return usage("--shards %d: want 1 to %d", *shards, manifests.MaxShards)
 		}
 		name, val := EnvJobCompletionIndex, getenv(EnvJobCompletionIndex)
 		if val == "" {
@@ -122,6 +122,9 @@ func ParseShard(spec string, shards *int, work string, getenv func(string) strin
 		if !found || !okI || !okN || n < 1 || i >= n {
 			return usage("--shard %q: want i/n, shard i of n with 0 <= i < n (or env)", spec)
 		}
+		if n > manifests.MaxShards {
+			return usage("--shard %s: at most %d shards", spec, manifests.MaxShards)
+		}
 		sh = Shard{Index: i, Count: n}
 	}
 	if work == "" {
@@ -139,8 +142,8 @@ func shardNumber(s string) (int, bool) {
 
 // check validates a Shard built without ParseShard.
 func (sh Shard) check() error {
-	if sh.Count < 1 || sh.Index < 0 || sh.Index >= sh.Count {
-		return fmt.Errorf("%w: shard %d of %d: want 0 <= i < n", ErrUsage, sh.Index, sh.Count)
+	if sh.Count < 1 || sh.Count > manifests.MaxShards || sh.Index < 0 || sh.Index >= sh.Count {
+		return fmt.Errorf("%w: shard %d of %d: want 0 <= i < n <= %d", ErrUsage, sh.Index, sh.Count, manifests.MaxShards)
 	}
 	if sh.Work == "" {
 		return fmt.Errorf("%w: --shard needs --work DIR, the folder where the shards leave their results", ErrUsage)
@@ -465,18 +468,20 @@ func readPartials[T any](dir, command string, decode func(io.Reader) (*T, error)
 				ErrShards, paths[0], n, paths[k], c)
 		}
 	}
-	byIndex := make([][]int, n)
+	// Results by index; a map, as n comes from the documents.
+	byIndex := map[int][]int{}
 	for k, d := range docs {
 		i := head(d).Shard.Index
 		byIndex[i] = append(byIndex[i], k)
 	}
 	var problems []string
-	var missing []string
-	for i, ks := range byIndex {
-		switch {
-		case len(ks) == 0:
-			missing = append(missing, strconv.Itoa(i))
-		case len(ks) > 1:
+	present := make([]int, 0, len(byIndex))
+	for i := range byIndex {
+		present = append(present, i)
+	}
+	sort.Ints(present)
+	for _, i := range present {
+		if ks := byIndex[i]; len(ks) > 1 {
 			var where []string
 			for _, k := range ks {
 				where = append(where, paths[k])
@@ -484,18 +489,29 @@ func readPartials[T any](dir, command string, decode func(io.Reader) (*T, error)
 			problems = append(problems, fmt.Sprintf("%s shard %d of %d is present %d times (%s)", command, i, n, len(ks), strings.Join(where, ", ")))
 		}
 	}
-	if len(missing) > 0 {
-		s := ""
-		if len(missing) > 1 {
+	if absent := n - len(byIndex); absent > 0 {
+		const named = 20
+		var missing []string
+		for i := 0; i < n && len(missing) < named; i++ {
+			if len(byIndex[i]) == 0 {
+				missing = append(missing, strconv.Itoa(i))
+			}
+		}
+		s, list := "", strings.Join(missing, ", ")
+		if absent > 1 {
 			s = "s"
 		}
-		problems = append(problems, fmt.Sprintf("%s shard%s %s of %d missing", command, s, strings.Join(missing, ", "), n))
+		if absent > len(missing) {
+			list += fmt.Sprintf(" and %d more", absent-len(missing))
+		}
+		problems = append(problems, fmt.Sprintf("%s shard%s %s of %d missing", command, s, list, n))
 	}
 	if len(problems) > 0 {
 		return nil, nil, fmt.Errorf("%w: %s: %s", ErrShards, dir, strings.Join(problems, "; "))
 	}
 	outDocs, outPaths := make([]*T, n), make([]string, n)
-	for i, ks := range byIndex {
+	for i := range n {
+		ks := byIndex[i]
 		outDocs[i], outPaths[i] = docs[ks[0]], paths[ks[0]]
 		// Names and contents must agree, so that a result copied over
 		// another shard's name is caught.

@@ -19,6 +19,10 @@ import (
 // PartialVersion is the partial_version this build writes and reads.
 const PartialVersion = 1
 
+// MaxShards bounds the shard count of a sharded job (far above what
+// batch schedulers run as one array or indexed job).
+const MaxShards = 1_000_000
+
 // Kinds of partial documents.
 const (
 	KindMeasureShard = "measure_shard" // one shard's per-file statistics states
@@ -192,8 +196,8 @@ func (h *PartialHeader) validate(kind string) error {
 	if h.Kind != kind {
 		return fmt.Errorf("%w: kind %q, want %q", ErrInvalidPartial, h.Kind, kind)
 	}
-	if h.Shard.Count < 1 || h.Shard.Index < 0 || h.Shard.Index >= h.Shard.Count {
-		return fmt.Errorf("%w: shard %d of %d: want 0 <= index < count", ErrInvalidPartial, h.Shard.Index, h.Shard.Count)
+	if h.Shard.Count < 1 || h.Shard.Count > MaxShards || h.Shard.Index < 0 || h.Shard.Index >= h.Shard.Count {
+		return fmt.Errorf("%w: shard %d of %d: want 0 <= index < count <= %d", ErrInvalidPartial, h.Shard.Index, h.Shard.Count, MaxShards)
 	}
 	if want := h.Job.Settings.Digest(); h.Job.SHA256 != want {
 		return fmt.Errorf("%w: job.sha256 %q is not the digest of job.settings (%s)", ErrInvalidPartial, h.Job.SHA256, want)

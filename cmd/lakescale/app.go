@@ -46,6 +46,7 @@ var (
 	shardFlag  = &cli.StringFlag{Name: "shard", Usage: "work on shard `I/N` of the inputs only (0 <= I < N), or env: I from JOB_COMPLETION_INDEX (Kubernetes indexed Job) or else SLURM_ARRAY_TASK_ID (Slurm job array), N from --shards"}
 	shardsFlag = &cli.IntFlag{Name: "shards", Usage: "number of shards `N`, with --shard env"}
 	workFlag   = &cli.StringFlag{Name: "work", Usage: "work `DIR` where the shards of one job leave their results for merge or commit"}
+	commitFlag = &cli.StringFlag{Name: outputFlag.Name, Aliases: outputFlag.Aliases, Usage: "output dataset `DIR` the apply shards wrote into"}
 )
 
 func newApp() *cli.App {
@@ -142,7 +143,7 @@ func newApp() *cli.App {
 				Name:      "commit",
 				Usage:     "check the outputs of every apply shard and write the manifest one apply would write",
 				UsageText: "lakescale commit --output DIR --work DIR [--log-format text|json] [--metrics FILE]",
-				Flags:     []cli.Flag{outputFlag, workFlag, logFlag, metricsFlag},
+				Flags:     []cli.Flag{commitFlag, workFlag, logFlag, metricsFlag},
 				Action: func(c *cli.Context) error {
 					cfg, err := config(c)
 					if err != nil {
