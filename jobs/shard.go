@@ -342,6 +342,11 @@ func ApplyShard(ctx context.Context, cfg Config, sh Shard) (err error) {
 	if err := cfg.checkPaths(true); err != nil {
 		return err
 	}
+	// Commit will need the store to refuse a second create; find out now,
+	// before the shards do all their work.
+	if err := checkCommitSupport(&cfg); err != nil {
+		return err
+	}
 	p, params, m, err := applyPlan(&cfg)
 	if err != nil {
 		return err
