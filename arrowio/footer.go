@@ -22,7 +22,7 @@ func ReadFooter(path string) (rows int64, schema *arrow.Schema, meta map[string]
 	// No column data is read, so no Arrow buffers are allocated.
 	r, err := newReader(path, f, memory.DefaultAllocator)
 	if err != nil {
-		f.Close()
+		_ = f.Close() // the open error is the one to report
 		return 0, nil, nil, pathError("read", path, err)
 	}
 	defer r.Close()

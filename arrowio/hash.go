@@ -18,7 +18,7 @@ func HashFile(loc string) (size int64, sum string, err error) {
 	if err != nil {
 		return 0, "", err
 	}
-	defer obj.Close()
+	defer func() { _ = obj.Close() }() // read-only; a read error is reported
 	h := sha256.New()
 	n, err := io.Copy(h, io.NewSectionReader(obj, 0, obj.Size()))
 	if err != nil {

@@ -69,7 +69,7 @@ func Open(path string, mem memory.Allocator) (*Reader, error) {
 	hs := newSeqHasher(obj)
 	r, err := newReader(path, hs, mem)
 	if err != nil {
-		obj.Close()
+		_ = obj.Close() // the open error is the one to report
 		return nil, pathError("open", path, err)
 	}
 	r.hasher = hs

@@ -265,7 +265,7 @@ func (s *s3Bucket) Write(ctx context.Context, key string, ifAbsent bool, write f
 	defer func() {
 		if !finished {
 			pw.CloseWithError(errWriteAborted)
-			<-done
+			<-done //nolint:errcheck // the panic or earlier error is what goes on up
 		}
 	}()
 
@@ -287,10 +287,10 @@ func (s *s3Bucket) Write(ctx context.Context, key string, ifAbsent bool, write f
 	case werr != nil:
 		pw.CloseWithError(werr)
 		finished = true
-		<-done
+		<-done //nolint:errcheck // the upload was aborted because of werr, which is returned
 		return 0, "", werr
 	}
-	pw.Close()
+	_ = pw.Close() // always nil for a pipe writer
 	finished = true
 	if err := <-done; err != nil {
 		return 0, "", s.pathErr("write", key, err)

@@ -148,10 +148,10 @@ func (o *s3Object) get(p []byte, off int64) (n int, final bool, err error) {
 		}
 		return 0, true, o.st.pathErr("read", o.key, err)
 	}
-	defer out.Body.Close()
+	defer func() { _ = out.Body.Close() }() // a read-only body; its read errors are reported
 	// A server that ignores Range sends the whole object from byte 0.
 	cr := out.ContentRange
-	if start, ok := rangeStart(aws.ToString(cr)); !(ok && start == off) && !(cr == nil && off == 0) {
+	if start, ok := rangeStart(aws.ToString(cr)); (!ok || start != off) && (cr != nil || off != 0) {
 		return 0, true, o.st.pathErr("read", o.key, fmt.Errorf("asked for bytes %d-%d, got Content-Range %q", off, end, aws.ToString(cr)))
 	}
 	n, err = io.ReadFull(out.Body, p)

@@ -197,9 +197,15 @@ func readAll(ctx context.Context, st Store, key string) ([]byte, error) {
 	if err != nil {
 		return nil, err
 	}
-	defer obj.Close()
 	b := make([]byte, obj.Size())
-	if _, err := obj.ReadAt(b, 0); err != nil && !(errors.Is(err, io.EOF) && len(b) == 0) {
+	_, err = obj.ReadAt(b, 0)
+	if errors.Is(err, io.EOF) && len(b) == 0 {
+		err = nil
+	}
+	if cerr := obj.Close(); err == nil {
+		err = cerr
+	}
+	if err != nil {
 		return nil, err
 	}
 	return b, nil
