@@ -83,14 +83,19 @@ func (o *s3Object) ReadAt(p []byte, off int64) (int, error) {
 		}
 		return eofIfShort(len(want), len(p))
 	}
-	buf := make([]byte, min(s3ReadAhead, o.size-off))
-	if err := o.fetch(buf, off); err != nil {
+	// The window starts at off, or earlier when that would run past the
+	// end: a Parquet reader's first reads are the footer's, at the end,
+	// and a window ending at the end then holds the last column chunks
+	// too (for a file smaller than the window, all of it).
+	start := max(0, min(off, o.size-s3ReadAhead))
+	buf := make([]byte, min(s3ReadAhead, o.size-start))
+	if err := o.fetch(buf, start); err != nil {
 		return 0, err
 	}
-	copy(want, buf)
+	copy(want, buf[off-start:])
 	o.mu.Lock()
 	if !o.closed {
-		o.win, o.winOff = buf, off
+		o.win, o.winOff = buf, start
 	}
 	o.mu.Unlock()
 	return eofIfShort(len(want), len(p))

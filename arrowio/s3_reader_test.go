@@ -1,0 +1,80 @@
+package arrowio
+
+import (
+	"context"
+	"io"
+	"testing"
+
+	"github.com/apache/arrow/go/v17/arrow/memory"
+)
+
+// A Parquet file written to and read from an s3:// location through the
+// package's own functions (the S3 store behind Locate): its bytes are the
+// local writer's, reading every column of every row group and hashing the
+// file costs a handful of requests, and the checksum is the SHA-256 of the
+// stored object.
+func TestS3ParquetThroughLocations(t *testing.T) {
+	_, fake := newTestS3(t)
+	setTunable(t, &s3ReadAhead, 8<<20) // the default window
+	SetS3Options(S3Options{Endpoint: fake.url, PathStyle: true, Region: "us-east-1"})
+	t.Cleanup(func() { SetS3Options(S3Options{}) })
+
+	rows := mixedRows(20000)
+	local := tempPath(t, "x.parquet")
+	want := writeRows(t, memory.DefaultAllocator, local, rows, 3000, WriteOptions{RowGroupRows: 5000})
+	loc := "s3://" + testBucket + "/lake/day=1/x.parquet"
+	got := writeRows(t, memory.DefaultAllocator, loc, rows, 3000, WriteOptions{RowGroupRows: 5000})
+	if got != want {
+		t.Fatalf("S3 output %+v, local %+v: want the same bytes", got, want)
+	}
+
+	files, err := Discover("s3://" + testBucket + "/lake")
+	if err != nil || len(files) != 1 || files[0].Rel != "day=1/x.parquet" || files[0].Abs != loc || files[0].Size != want.Bytes {
+		t.Fatalf("Discover: %+v, %v", files, err)
+	}
+	if n, _, _, err := ReadFooter(loc); err != nil || n != int64(len(rows)) {
+		t.Fatalf("ReadFooter: %d rows, %v", n, err)
+	}
+
+	st, _, err := Locate(loc)
+	if err != nil {
+		t.Fatal(err)
+	}
+	bucket := st.(*s3Bucket)
+	before := bucket.requests.Load()
+	r, err := Open(loc, memory.DefaultAllocator)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer r.Close()
+	var read int64
+	for rg := range r.NumRowGroups() {
+		rr, err := r.Records(context.Background(), rg, nil, 0)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for {
+			rec, err := rr.Read()
+			if err == io.EOF {
+				break
+			}
+			if err != nil {
+				t.Fatal(err)
+			}
+			read += rec.NumRows()
+		}
+		rr.Release()
+	}
+	size, sum, err := r.Checksum()
+	if err != nil || size != want.Bytes || sum != want.SHA256 {
+		t.Fatalf("Checksum: %d %s %v; want %d %s", size, sum, err, want.Bytes, want.SHA256)
+	}
+	if read != int64(len(rows)) {
+		t.Fatalf("read %d rows, want %d", read, len(rows))
+	}
+	// A HEAD at open and one GET of a window that ends at the end of the
+	// file and, the file being smaller than the window, holds all of it.
+	if n := bucket.requests.Load() - before; n != 2 {
+		t.Errorf("reading and hashing a %d-byte file in %d row groups took %d requests, want 2", size, r.NumRowGroups(), n)
+	}
+}
