@@ -113,28 +113,45 @@ func SetS3Options(o S3Options) {
 //	file:///abs/path        the local disk, key "/abs/path"
 //	anything else           the local disk, the location itself as key
 func Locate(loc string) (Store, string, error) {
+	if err := CheckLocation(loc); err != nil {
+		return nil, "", err
+	}
 	switch {
 	case strings.HasPrefix(loc, schemeS3):
 		bucket, key, _ := strings.Cut(strings.TrimPrefix(loc, schemeS3), "/")
-		if bucket == "" {
-			return nil, "", fmt.Errorf("%s: want s3://bucket/key", loc)
-		}
 		st, err := bucketStore(bucket)
 		if err != nil {
 			return nil, "", fmt.Errorf("%s: %w", loc, err)
 		}
 		return st, strings.TrimSuffix(key, "/"), nil
 	case strings.HasPrefix(loc, schemeFile):
-		p := strings.TrimPrefix(loc, schemeFile)
-		if p == "" || !strings.HasPrefix(p, "/") {
-			return nil, "", fmt.Errorf("%s: want file:///absolute/path", loc)
-		}
-		return Local, filepath.FromSlash(p), nil
-	case strings.Contains(loc, "://"):
-		scheme, _, _ := strings.Cut(loc, "://")
-		return nil, "", fmt.Errorf("%s: unsupported scheme %q (want a path, file:// or s3://)", loc, scheme)
+		return Local, filepath.FromSlash(strings.TrimPrefix(loc, schemeFile)), nil
 	}
 	return Local, loc, nil
+}
+
+// ErrBadLocation marks a location Locate cannot use: an unknown scheme,
+// an s3:// location without a bucket, a file:// URL without an absolute
+// path.
+var ErrBadLocation = errors.New("bad location")
+
+// CheckLocation checks the form of a location without touching storage;
+// errors wrap ErrBadLocation and name the location.
+func CheckLocation(loc string) error {
+	switch {
+	case strings.HasPrefix(loc, schemeS3):
+		if bucket, _, _ := strings.Cut(strings.TrimPrefix(loc, schemeS3), "/"); bucket == "" {
+			return fmt.Errorf("%s: %w: want s3://bucket/key", loc, ErrBadLocation)
+		}
+	case strings.HasPrefix(loc, schemeFile):
+		if p := strings.TrimPrefix(loc, schemeFile); !strings.HasPrefix(p, "/") {
+			return fmt.Errorf("%s: %w: want file:///absolute/path", loc, ErrBadLocation)
+		}
+	case strings.Contains(loc, "://"):
+		scheme, _, _ := strings.Cut(loc, "://")
+		return fmt.Errorf("%s: %w: unsupported scheme %q (want a path, file:// or s3://)", loc, ErrBadLocation, scheme)
+	}
+	return nil
 }
 
 func bucketStore(bucket string) (Store, error) {

@@ -25,6 +25,9 @@ func Clean(ctx context.Context, cfg Config) (err error) {
 	if cfg.Output == "" {
 		return fmt.Errorf("%w: clean needs an output location", ErrUsage)
 	}
+	if err := cfg.checkLocations(); err != nil {
+		return err
+	}
 	log, err := newRunLog(&cfg, "clean")
 	if err != nil {
 		return err

@@ -291,6 +291,17 @@ func resolveRule(fr fileRule, std stats.StdKind) (Rule, error) {
 	return r, nil
 }
 
+// checkLocations checks the form of every location given (a path, file://
+// or s3://) before anything is read; a bad one is a usage error.
+func (c *Config) checkLocations(extra ...string) error {
+	for _, loc := range append([]string{c.Input, c.Output, c.StatsPath, c.ParamsPath, c.CacheDir, c.MetricsPath}, extra...) {
+		if err := arrowio.CheckLocation(loc); err != nil {
+			return fmt.Errorf("%w: %w", ErrUsage, err)
+		}
+	}
+	return nil
+}
+
 // checkPaths validates input and output before any work is done.
 func (c *Config) checkPaths(needOutput bool) error {
 	if c.Input == "" {

@@ -65,6 +65,9 @@ func Run(ctx context.Context, cfg Config) (err error) {
 // tree may be written. The caller must pass its result through end, which
 // releases the lock and writes the summary line.
 func begin(cfg *Config, command string, writes bool, required ...string) (log *runLog, end func(error) error, err error) {
+	if err := cfg.checkLocations(); err != nil {
+		return nil, nil, err
+	}
 	if err := cfg.checkPaths(writes); err != nil {
 		return nil, nil, err
 	}

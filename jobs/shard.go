@@ -148,6 +148,9 @@ func (sh Shard) check() error {
 	if sh.Work == "" {
 		return fmt.Errorf("%w: --shard needs --work DIR, the folder where the shards leave their results", ErrUsage)
 	}
+	if err := arrowio.CheckLocation(sh.Work); err != nil {
+		return fmt.Errorf("%w: %w", ErrUsage, err)
+	}
 	return nil
 }
 
@@ -628,6 +631,9 @@ func MergeShards(ctx context.Context, cfg Config, work string) (err error) {
 	if cfg.StatsPath == "" {
 		return fmt.Errorf("%w: merge needs --stats", ErrUsage)
 	}
+	if err := cfg.checkLocations(work); err != nil {
+		return err
+	}
 	log, err := newRunLog(&cfg, "merge")
 	if err != nil {
 		return err
@@ -718,6 +724,9 @@ func CommitShards(ctx context.Context, cfg Config, work string) (err error) {
 	}
 	if cfg.Output == "" {
 		return fmt.Errorf("%w: commit needs --output DIR", ErrUsage)
+	}
+	if err := cfg.checkLocations(work); err != nil {
+		return err
 	}
 	// The lists name the input, which begin checks the output against;
 	// until then failures go to a log of their own.
