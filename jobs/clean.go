@@ -28,6 +28,13 @@ func Clean(ctx context.Context, cfg Config) (err error) {
 	if err := cfg.checkLocations(); err != nil {
 		return err
 	}
+	// Looked at before the lock is taken, which would create the folder.
+	if _, exists, err := arrowio.ListDir(cfg.Output); err != nil || !exists {
+		if err == nil {
+			fmt.Fprintf(cfg.Out, "nothing to clean: %s does not exist\n", cfg.Output)
+		}
+		return err
+	}
 	log, err := newRunLog(&cfg, "clean")
 	if err != nil {
 		return err
@@ -39,29 +46,19 @@ func Clean(ctx context.Context, cfg Config) (err error) {
 	}
 	defer unlock()
 
-	names, exists, err := arrowio.ListDir(cfg.Output)
+	state, foreign, err := outputState(cfg.Output)
 	if err != nil {
 		return err
 	}
-	has := make(map[string]bool, len(names))
-	for _, n := range names {
-		if n != lockName && n != cacheDirName && !arrowio.IsTempName(n) {
-			has[n] = true
-		}
-	}
-	if !exists {
-		fmt.Fprintf(cfg.Out, "nothing to clean in %s\n", cfg.Output)
-		return nil
-	}
-	if len(has) > 0 && !has[ManifestName] && !has[markerName] {
-		return fmt.Errorf("%w: %s holds files lakescale did not write (no %s and no %s); nothing removed", ErrOutputNotEmpty, cfg.Output, ManifestName, markerName)
+	if state == outForeign {
+		return fmt.Errorf("%w: %s holds %s and neither %s nor %s, so lakescale did not write it; nothing removed", ErrOutputNotEmpty, cfg.Output, foreign, ManifestName, markerName)
 	}
 	temps, err := arrowio.RemoveTemps(cfg.Output)
 	if err != nil {
 		return err
 	}
 	removed := 0
-	if !has[ManifestName] {
+	if state == outUncommitted {
 		files, err := arrowio.Discover(cfg.Output)
 		if err != nil && !errors.Is(err, arrowio.ErrNoInputs) {
 			return err
@@ -76,19 +73,22 @@ func Clean(ctx context.Context, cfg Config) (err error) {
 			removed++
 		}
 	}
-	if has[markerName] {
-		if err := arrowio.Remove(arrowio.Join(cfg.Output, markerName)); err != nil {
-			return err
-		}
+	// A marker beside a manifest is left by a commit killed before it
+	// removed the marker; either way the marker goes.
+	if err := arrowio.Remove(arrowio.Join(cfg.Output, markerName)); err != nil {
+		return err
 	}
 	if err := arrowio.RemoveEmptyDirs(cfg.Output); err != nil {
 		return err
 	}
-	state := "committed dataset kept"
-	if !has[ManifestName] {
-		state = "uncommitted run"
+	kind := "committed dataset kept"
+	switch state {
+	case outUncommitted:
+		kind = "uncommitted run"
+	case outEmpty:
+		kind = "no dataset"
 	}
-	fmt.Fprintf(cfg.Out, "removed %d output files and %d temporary files from %s (%s)\n", removed, temps, cfg.Output, state)
+	fmt.Fprintf(cfg.Out, "removed %d output files and %d temporary files from %s (%s)\n", removed, temps, cfg.Output, kind)
 	log.phase("clean", "removed", removed, "temporary", temps)
 	return nil
 }

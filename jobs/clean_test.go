@@ -134,3 +134,33 @@ func TestSecondCommitRefused(t *testing.T) {
 		t.Error("manifest gone")
 	}
 }
+
+// A commit killed between creating the manifest and removing the marker
+// leaves both: that is a committed dataset, which run refuses to replace
+// without --overwrite and clean keeps (removing only the marker).
+func TestManifestWinsOverMarker(t *testing.T) {
+	tmp := t.TempDir()
+	lake, out := filepath.Join(tmp, "lake"), filepath.Join(tmp, "out")
+	writeDemoLake(t, lake)
+	if err := Run(context.Background(), testConfig(t, lake, out, 2)); err != nil {
+		t.Fatal(err)
+	}
+	writeText(t, filepath.Join(out, markerName), "run started\n")
+	before := listTree(t, out)
+	err := Run(context.Background(), testConfig(t, lake, out, 2))
+	if !errors.Is(err, ErrOutputNotEmpty) || !strings.Contains(err.Error(), "committed dataset") {
+		t.Fatalf("run over manifest + marker without --overwrite: %v; want a refusal", err)
+	}
+	if after := listTree(t, out); strings.Join(after, ",") != strings.Join(before, ",") {
+		t.Fatalf("the refused run changed the output:\n%v\n%v", before, after)
+	}
+	if err := Clean(context.Background(), testConfig(t, lake, out, 1)); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := os.Stat(filepath.Join(out, markerName)); !errors.Is(err, fs.ErrNotExist) {
+		t.Errorf("marker left beside the manifest: %v", err)
+	}
+	if err := Verify(context.Background(), io.Discard, out); err != nil {
+		t.Fatal(err)
+	}
+}

@@ -364,21 +364,14 @@ func Version(version string) string {
 // an uncommitted earlier run, or (with Overwrite) a committed dataset.
 // The lock file and the statistics cache do not count.
 func checkOutput(cfg *Config) error {
-	names, exists, err := arrowio.ListDir(cfg.Output)
+	state, _, err := outputState(cfg.Output)
 	if err != nil {
 		return err
 	}
-	has := make(map[string]bool, len(names))
-	for _, n := range names {
-		if n != lockName && n != cacheDirName && !arrowio.IsTempName(n) {
-			has[n] = true
-		}
-	}
 	switch {
-	case !exists || len(has) == 0 || has[markerName]:
-	case has[ManifestName] && !cfg.Overwrite:
+	case state == outCommitted && !cfg.Overwrite:
 		return fmt.Errorf("%w: %s holds a committed dataset (%s); give --overwrite to replace it", ErrOutputNotEmpty, cfg.Output, ManifestName)
-	case !has[ManifestName]:
+	case state == outForeign:
 		// Not a lakescale tree: never written into, even with --overwrite,
 		// so that no user file can be replaced or removed.
 		return fmt.Errorf("%w: %s holds files lakescale did not write; want an absent or empty directory, a lakescale output, or another output path", ErrOutputNotEmpty, cfg.Output)

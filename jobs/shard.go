@@ -403,27 +403,17 @@ func ApplyShard(ctx context.Context, cfg Config, sh Shard) (err error) {
 // write, and marks the folder uncommitted unless another shard (or an
 // earlier run) already did. Other shards' files are left alone.
 func openShardOutput(cfg *Config) error {
-	names, _, err := arrowio.ListDir(cfg.Output)
+	state, foreign, err := outputState(cfg.Output)
 	if err != nil {
 		return err
 	}
-	marked, foreign := false, ""
-	for _, n := range names {
-		switch {
-		case n == ManifestName:
-			return fmt.Errorf("%w: %s holds a committed dataset (%s); a sharded apply writes into a fresh output: give another --output", ErrOutputNotEmpty, cfg.Output, ManifestName)
-		case n == markerName:
-			marked = true
-		case n == lockName || n == cacheDirName || arrowio.IsTempName(n):
-		case foreign == "":
-			foreign = n
-		}
-	}
-	if marked {
-		return nil
-	}
-	if foreign != "" {
+	switch state {
+	case outCommitted:
+		return fmt.Errorf("%w: %s holds a committed dataset (%s); a sharded apply writes into a fresh output: give another --output", ErrOutputNotEmpty, cfg.Output, ManifestName)
+	case outForeign:
 		return fmt.Errorf("%w: %s holds %s but no %s marker, so lakescale did not write it; want an absent or empty directory, or the output of this sharded apply", ErrOutputNotEmpty, cfg.Output, foreign, markerName)
+	case outUncommitted:
+		return nil
 	}
 	if err := arrowio.MkdirAll(cfg.Output); err != nil {
 		return err
