@@ -315,9 +315,33 @@ func (s *s3Bucket) create(ctx context.Context, key string, write func(io.Writer)
 		IfNoneMatch: aws.String("*"),
 	})
 	if err != nil {
-		return 0, "", s.pathErr("create", key, err)
+		err = s.pathErr("create", key, err)
+		// A create that was stored but whose response was lost is sent
+		// again by the SDK's retryer and then refused: the object is
+		// ours exactly when it holds our bytes.
+		if errors.Is(err, fs.ErrExist) && s.holds(ctx, key, buf.Bytes()) {
+			return tw.n, tw.sum(), nil
+		}
+		return 0, "", err
 	}
 	return tw.n, tw.sum(), nil
+}
+
+// holds reports whether the object at key exists and holds exactly b.
+func (s *s3Bucket) holds(ctx context.Context, key string, b []byte) bool {
+	obj, err := s.Open(ctx, key)
+	if err != nil {
+		return false
+	}
+	defer func() { _ = obj.Close() }() // read-only
+	if obj.Size() != int64(len(b)) {
+		return false
+	}
+	got := make([]byte, len(b))
+	if _, err := obj.ReadAt(got, 0); err != nil && !(errors.Is(err, io.EOF) && len(b) == 0) {
+		return false
+	}
+	return bytes.Equal(got, b)
 }
 
 // abortUploads aborts the incomplete multipart uploads below the folder dir

@@ -42,6 +42,9 @@ type fakeS3 struct {
 	fail      atomic.Int64 // answer this many requests with 503 SlowDown
 	forbid    atomic.Bool  // answer every request with 403 AccessDenied
 	cutBodies atomic.Int64 // break off this many ranged GET bodies midway
+	// loseResponses: carry out this many requests but answer them with
+	// 503, as when a response is lost on the way back.
+	loseResponses atomic.Int64
 
 	creates atomic.Int64 // CreateMultipartUpload requests seen
 }
@@ -56,6 +59,12 @@ func (f *fakeS3) ServeHTTP(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	f.fail.Store(0)
+	if f.loseResponses.Add(-1) >= 0 {
+		f.h.ServeHTTP(httptest.NewRecorder(), r)
+		s3ErrorResponse(w, http.StatusServiceUnavailable, "SlowDown", "Please reduce your request rate.")
+		return
+	}
+	f.loseResponses.Store(0)
 	if r.Method == http.MethodPost && r.URL.Query().Has("uploads") {
 		f.creates.Add(1)
 	}
@@ -546,6 +555,31 @@ func TestS3CreateIfAbsent(t *testing.T) {
 	put(t, st, "m/manifest.json", []byte("overwritten"))
 	if b := get(t, st, "m/manifest.json"); string(b) != "overwritten" {
 		t.Errorf("plain write over an object: %q", b)
+	}
+}
+
+// A create that was stored but whose response was lost is retried by the
+// SDK and refused by the store; it is still this writer's create, and
+// reported as done. Another writer's object is still refused.
+func TestS3CreateRetriedAfterLostResponse(t *testing.T) {
+	st, fake := newTestS3(t)
+	ctx := context.Background()
+	create := func(key, s string) error {
+		_, _, err := st.Write(ctx, key, true, func(w io.Writer) error {
+			_, err := io.WriteString(w, s)
+			return err
+		})
+		return err
+	}
+	fake.loseResponses.Store(1)
+	if err := create("m/_manifest.json", "mine"); err != nil {
+		t.Fatalf("create whose first response was lost: %v", err)
+	}
+	if b := get(t, st, "m/_manifest.json"); string(b) != "mine" {
+		t.Fatalf("object holds %q", b)
+	}
+	if err := create("m/_manifest.json", "theirs"); !errors.Is(err, fs.ErrExist) {
+		t.Fatalf("create over another writer's object: %v, want fs.ErrExist", err)
 	}
 }
 
