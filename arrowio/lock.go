@@ -170,6 +170,12 @@ func (l *Lock) Renew(now time.Time) error {
 		_, err := w.Write(content)
 		return err
 	}); err != nil {
+		// The write may have been stored although it reported an error
+		// (a lost response); then the lock holds the new content.
+		if cur, rerr := readAll(background, l.st, l.key); rerr == nil && bytes.Equal(cur, content) {
+			l.content = content
+			return nil
+		}
 		return err
 	}
 	l.content = content

@@ -72,6 +72,9 @@ type Config struct {
 	// commit may remove (set by prepareOutput).
 	owned  map[string]bool
 	ownAll bool
+	// lockLost reports, once the output's lock has been taken over by
+	// another run, why this run must not commit (set by lockOutput).
+	lockLost func() error
 
 	Version string           // program version, recorded in the manifest
 	Now     func() time.Time // clock for created_at

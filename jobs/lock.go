@@ -3,6 +3,7 @@ package jobs
 import (
 	"errors"
 	"fmt"
+	"sync/atomic"
 	"time"
 
 	"github.com/lakescale/lakescale/arrowio"
@@ -38,6 +39,13 @@ func lockOutput(cfg *Config, log *runLog) (func(), error) {
 		log.warn("took over a stale lock", "pid", stale.PID, "host", stale.Host, "started", stale.Started)
 	}
 	stop, done := make(chan struct{}), make(chan struct{})
+	var lost atomic.Value // the ErrLockLost error, once the lock is lost
+	cfg.lockLost = func() error {
+		if err, ok := lost.Load().(error); ok {
+			return fmt.Errorf("output %s: lost its lock while working, another run took it over; nothing of this run is committed: %w", cfg.Output, err)
+		}
+		return nil
+	}
 	go func() {
 		defer close(done)
 		t := time.NewTicker(lockRenewEvery)
@@ -53,6 +61,7 @@ func lockOutput(cfg *Config, log *runLog) (func(), error) {
 					// it.
 					log.warn("could not renew the output lock", "error", err.Error())
 					if errors.Is(err, arrowio.ErrLockLost) {
+						lost.Store(err)
 						return
 					}
 				}

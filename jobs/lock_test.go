@@ -1,9 +1,12 @@
 package jobs
 
 import (
+	"context"
 	"encoding/json"
+	"errors"
 	"os"
 	"path/filepath"
+	"strings"
 	"sync"
 	"testing"
 	"time"
@@ -61,4 +64,40 @@ func lockExpiry(t *testing.T, path string) string {
 		t.Fatalf("%s: %v", path, err)
 	}
 	return h.Expires
+}
+
+// A run whose lock is taken over while it works (its lease ran out, say
+// while the machine was suspended) does not commit.
+func TestLockLostRunDoesNotCommit(t *testing.T) {
+	defer func(d time.Duration) { lockRenewEvery = d }(lockRenewEvery)
+	lockRenewEvery = 2 * time.Millisecond
+	tmp := t.TempDir()
+	lake, out := filepath.Join(tmp, "lake"), filepath.Join(tmp, "out")
+	writeDemoLake(t, lake)
+	defer func(h func(string)) { hookFileWritten = h }(hookFileWritten)
+	var once sync.Once
+	hookFileWritten = func(string) {
+		once.Do(func() {
+			// Written again and again over several renewal ticks: a
+			// renewal that read the lock just before one write may
+			// overwrite it (Renew reads, then writes), but not all.
+			other := `{"pid":1,"host":"elsewhere","started":"2026-01-02T03:04:05Z","expires":"2099-01-01T00:00:00Z"}` + "\n"
+			for range 50 {
+				if err := os.WriteFile(filepath.Join(out, lockName), []byte(other), 0o644); err != nil {
+					t.Error(err)
+				}
+				time.Sleep(time.Millisecond)
+			}
+		})
+	}
+	err := Run(context.Background(), testConfig(t, lake, out, 1))
+	if !errors.Is(err, arrowio.ErrLockLost) || !strings.Contains(err.Error(), "nothing of this run is committed") {
+		t.Fatalf("run that lost its lock: %v; want ErrLockLost", err)
+	}
+	if _, err := os.Stat(filepath.Join(out, ManifestName)); !os.IsNotExist(err) {
+		t.Fatalf("manifest committed after the lock was lost: %v", err)
+	}
+	if got, _ := os.ReadFile(filepath.Join(out, lockName)); !strings.Contains(string(got), "elsewhere") {
+		t.Errorf("the new holder's lock was removed or changed: %q", got)
+	}
 }

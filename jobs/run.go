@@ -467,6 +467,11 @@ func (p *plan) commit(ctx context.Context, cfg *Config, m *manifests.Manifest, o
 	}
 	log.sum.Warnings = countWarnings(m.Columns)
 	manifestPath := arrowio.Join(cfg.Output, ManifestName)
+	if cfg.lockLost != nil {
+		if err := cfg.lockLost(); err != nil {
+			return err
+		}
+	}
 	if err := writeManifest(manifestPath, m); err != nil {
 		return err
 	}
