@@ -140,8 +140,18 @@ var ErrBadLocation = errors.New("bad location")
 func CheckLocation(loc string) error {
 	switch {
 	case strings.HasPrefix(loc, schemeS3):
-		if bucket, _, _ := strings.Cut(strings.TrimPrefix(loc, schemeS3), "/"); bucket == "" {
+		bucket, key, _ := strings.Cut(strings.TrimPrefix(loc, schemeS3), "/")
+		if bucket == "" {
 			return fmt.Errorf("%s: %w: want s3://bucket/key", loc, ErrBadLocation)
+		}
+		// Object keys are names, not paths: "a/../b" is a key of its own,
+		// which would escape the checks that compare cleaned locations.
+		if key = strings.TrimSuffix(key, "/"); key != "" {
+			for seg := range strings.SplitSeq(key, "/") {
+				if seg == "" || seg == "." || seg == ".." {
+					return fmt.Errorf("%s: %w: empty, \".\" or \"..\" segment in the key", loc, ErrBadLocation)
+				}
+			}
 		}
 	case strings.HasPrefix(loc, schemeFile):
 		if p := strings.TrimPrefix(loc, schemeFile); !strings.HasPrefix(p, "/") {

@@ -53,7 +53,7 @@ func cleanCommand() *cli.Command {
 	return &cli.Command{
 		Name:  "clean",
 		Usage: "remove what failed or killed runs left in an output DIR (never a committed dataset's files)",
-		UsageText: "lakescale clean DIR [--log-format text|json]\n\n" +
+		UsageText: "lakescale clean [--log-format text|json] DIR   (flags before DIR)\n\n" +
 			"   Removes temporary files and incomplete uploads; in an uncommitted output (no _manifest.json)\n" +
 			"   also every Parquet file and the _uncommitted marker. Refuses a DIR lakescale did not write.",
 		Flags: []cli.Flag{logFlag},
