@@ -2,6 +2,7 @@ package arrowio
 
 import (
 	"bufio"
+	"errors"
 	"io"
 	"io/fs"
 	"os"
@@ -67,6 +68,41 @@ func WriteFileAtomic(path string, write func(io.Writer) error) error {
 // If-None-Match: *.
 func CreateFile(path string, write func(io.Writer) error) error {
 	return writeFile(path, true, write)
+}
+
+// CreateFileUnchecked is CreateFile on a store that may not carry out
+// create-only-if-absent writes (the user opted out of the start-up check):
+// where the conditional create fails for another reason than an existing
+// file (a store that rejects If-None-Match, a file system without hard
+// links), it checks that nothing exists at path and writes it with
+// WriteFileAtomic, which another writer could race.
+func CreateFileUnchecked(path string, write func(io.Writer) error) error {
+	st, key, err := Locate(path)
+	if err != nil {
+		return err
+	}
+	_, _, err = createUnchecked(st, key, path, func(w io.Writer) error {
+		if err := write(w); err != nil {
+			return pathError("write", path, err)
+		}
+		return nil
+	})
+	return err
+}
+
+// createUnchecked is Store.Write with ifAbsent, falling back as
+// CreateFileUnchecked describes; loc names the object in errors.
+func createUnchecked(st Store, key, loc string, write func(io.Writer) error) (int64, string, error) {
+	n, sum, err := st.Write(background, key, true, write)
+	if err == nil || errors.Is(err, fs.ErrExist) {
+		return n, sum, err
+	}
+	if _, serr := st.Stat(background, key); serr == nil {
+		return 0, "", pathError("create", loc, fs.ErrExist)
+	} else if !errors.Is(serr, fs.ErrNotExist) {
+		return 0, "", serr
+	}
+	return st.Write(background, key, false, write)
 }
 
 func writeFile(path string, ifAbsent bool, write func(io.Writer) error) error {

@@ -49,7 +49,8 @@ type Lock struct {
 }
 
 // AcquireLock takes the lock file at path, creating it (and its folder)
-// with O_CREATE|O_EXCL so that of two processes only one can succeed. The
+// with a create-only-if-absent write (link(2) on local disk, If-None-Match
+// on S3) so that of two processes only one can succeed. The
 // file records this process's pid, host name and start time.
 //
 // When path already exists and its holder is a process on this host that
@@ -64,7 +65,10 @@ type Lock struct {
 //
 // The lock file is created with a create-if-absent write (Store.Write),
 // so on an object store it is taken with If-None-Match like a manifest.
-func AcquireLock(path string, now time.Time) (*Lock, *LockHolder, error) {
+//
+// With unchecked the lock file is created as CreateFileUnchecked creates
+// files, for stores that cannot carry out create-only-if-absent writes.
+func AcquireLock(path string, now time.Time, unchecked bool) (*Lock, *LockHolder, error) {
 	st, key, err := Locate(path)
 	if err != nil {
 		return nil, nil, err
@@ -92,10 +96,16 @@ func AcquireLock(path string, now time.Time) (*Lock, *LockHolder, error) {
 	}
 	var stale *LockHolder
 	for attempt := 0; ; attempt++ {
-		_, _, err := st.Write(background, key, true, func(w io.Writer) error {
+		write := func(w io.Writer) error {
 			_, err := w.Write(content)
 			return err
-		})
+		}
+		var err error
+		if unchecked {
+			_, _, err = createUnchecked(st, key, path, write)
+		} else {
+			_, _, err = st.Write(background, key, true, write)
+		}
 		if err == nil {
 			return &Lock{st: st, key: key, path: path, holder: me, content: content, created: created}, stale, nil
 		}

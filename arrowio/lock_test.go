@@ -17,7 +17,7 @@ var lockTime = time.Date(2026, 3, 1, 2, 0, 0, 0, time.UTC)
 
 func TestLockExclusive(t *testing.T) {
 	path := filepath.Join(t.TempDir(), "out", "_lock")
-	l, stale, err := AcquireLock(path, lockTime)
+	l, stale, err := AcquireLock(path, lockTime, false)
 	if err != nil || stale != nil {
 		t.Fatalf("first acquire: %v, stale %v", err, stale)
 	}
@@ -34,7 +34,7 @@ func TestLockExclusive(t *testing.T) {
 		t.Fatalf("lock file holds %+v", h)
 	}
 	// This process is alive, so a second acquire fails at once.
-	_, _, err = AcquireLock(path, lockTime)
+	_, _, err = AcquireLock(path, lockTime, false)
 	if !errors.Is(err, ErrLocked) {
 		t.Fatalf("second acquire: %v, want ErrLocked", err)
 	}
@@ -50,7 +50,7 @@ func TestLockExclusive(t *testing.T) {
 	if err := l.Release(); err != nil {
 		t.Fatalf("second Release: %v", err)
 	}
-	l, _, err = AcquireLock(path, lockTime)
+	l, _, err = AcquireLock(path, lockTime, false)
 	if err != nil {
 		t.Fatalf("acquire after release: %v", err)
 	}
@@ -88,7 +88,7 @@ func TestLockStaleTakeover(t *testing.T) {
 	host, _ := os.Hostname()
 	pid := deadPID(t)
 	writeHolder(t, path, LockHolder{PID: pid, Host: host, Started: "2026-02-28T02:00:00Z"})
-	l, stale, err := AcquireLock(path, lockTime)
+	l, stale, err := AcquireLock(path, lockTime, false)
 	if err != nil {
 		t.Fatalf("stale lock of dead pid %d not taken over: %v", pid, err)
 	}
@@ -112,7 +112,7 @@ func TestLockNotTakenOver(t *testing.T) {
 			if err := os.WriteFile(path, []byte(content), 0o644); err != nil {
 				t.Fatal(err)
 			}
-			_, _, err := AcquireLock(path, lockTime)
+			_, _, err := AcquireLock(path, lockTime, false)
 			if !errors.Is(err, ErrLocked) {
 				t.Fatalf("got %v, want ErrLocked", err)
 			}
@@ -126,7 +126,7 @@ func TestLockNotTakenOver(t *testing.T) {
 // Release leaves a lock that is no longer its own.
 func TestLockReleaseKeepsOthers(t *testing.T) {
 	path := filepath.Join(t.TempDir(), "_lock")
-	l, _, err := AcquireLock(path, lockTime)
+	l, _, err := AcquireLock(path, lockTime, false)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -144,7 +144,7 @@ func TestLockReleaseKeepsOthers(t *testing.T) {
 func TestLockRemovesCreatedFolders(t *testing.T) {
 	root := t.TempDir()
 	path := filepath.Join(root, "a", "b", "_lock")
-	l, _, err := AcquireLock(path, lockTime)
+	l, _, err := AcquireLock(path, lockTime, false)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -155,7 +155,7 @@ func TestLockRemovesCreatedFolders(t *testing.T) {
 		t.Fatalf("created folder left behind: %v", err)
 	}
 
-	l, _, err = AcquireLock(path, lockTime)
+	l, _, err = AcquireLock(path, lockTime, false)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -170,7 +170,7 @@ func TestLockRemovesCreatedFolders(t *testing.T) {
 	}
 
 	// An existing folder is never removed, even when empty.
-	l, _, err = AcquireLock(filepath.Join(root, "_lock"), lockTime)
+	l, _, err = AcquireLock(filepath.Join(root, "_lock"), lockTime, false)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -188,11 +188,11 @@ func TestLockLeaseExpiry(t *testing.T) {
 	path := filepath.Join(t.TempDir(), "_lock")
 	old := LockHolder{PID: 7, Host: "pod-that-is-gone", Started: "2026-03-01T01:00:00Z", Expires: "2026-03-01T01:10:00Z"}
 	writeHolder(t, path, old)
-	_, _, err := AcquireLock(path, lockTime.Add(-time.Hour).Add(5*time.Minute)) // 01:05, lease runs
+	_, _, err := AcquireLock(path, lockTime.Add(-time.Hour).Add(5*time.Minute), false) // 01:05, lease runs
 	if !errors.Is(err, ErrLocked) || !strings.Contains(err.Error(), "lease until 2026-03-01T01:10:00Z") {
 		t.Fatalf("lock with a running lease: %v; want ErrLocked naming the lease", err)
 	}
-	l, stale, err := AcquireLock(path, lockTime) // 02:00, lease over
+	l, stale, err := AcquireLock(path, lockTime, false) // 02:00, lease over
 	if err != nil {
 		t.Fatalf("expired lease not taken over: %v", err)
 	}
@@ -215,7 +215,7 @@ func TestLockLeaseExpiry(t *testing.T) {
 // Renew moves the lease on, and fails once another run took the lock.
 func TestLockRenew(t *testing.T) {
 	path := filepath.Join(t.TempDir(), "_lock")
-	l, _, err := AcquireLock(path, lockTime)
+	l, _, err := AcquireLock(path, lockTime, false)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -232,7 +232,7 @@ func TestLockRenew(t *testing.T) {
 		t.Fatalf("after renew: %+v; want started kept and expires %s", h, want)
 	}
 	// Still ours: a second acquire is refused.
-	if _, _, err := AcquireLock(path, later); !errors.Is(err, ErrLocked) {
+	if _, _, err := AcquireLock(path, later, false); !errors.Is(err, ErrLocked) {
 		t.Fatalf("acquire of a renewed lock: %v", err)
 	}
 	writeHolder(t, path, LockHolder{PID: 1, Host: "elsewhere", Started: "2026-03-01T03:00:00Z"})

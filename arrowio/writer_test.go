@@ -13,6 +13,7 @@ import (
 	"strings"
 	"syscall"
 	"testing"
+	"time"
 
 	"github.com/apache/arrow/go/v17/arrow/memory"
 	"github.com/apache/arrow/go/v17/parquet/pqarrow"
@@ -193,5 +194,47 @@ func TestCheckConditionalCreateRefusesLinklessFS(t *testing.T) {
 	}
 	if names, _, _ := ListDir(dir); len(names) != 0 {
 		t.Errorf("left behind: %v", names)
+	}
+}
+
+// Where link(2) is not permitted, CreateFile fails, and
+// CreateFileUnchecked (and an unchecked lock) fall back to an existence
+// check and a plain atomic write, still refusing an existing file.
+func TestCreateFileUncheckedWithoutLinks(t *testing.T) {
+	defer func(old func(string, string) error) { link = old }(link)
+	link = func(string, string) error { return &os.LinkError{Op: "link", Err: syscall.EPERM} }
+	dir := t.TempDir()
+	path := filepath.Join(dir, "m.json")
+	put := func(create func(string, func(io.Writer) error) error, s string) error {
+		return create(path, func(w io.Writer) error { _, err := io.WriteString(w, s); return err })
+	}
+	if err := put(CreateFile, "one"); err == nil || errors.Is(err, fs.ErrExist) {
+		t.Fatalf("CreateFile without links: %v; want the link failure", err)
+	}
+	if err := put(CreateFileUnchecked, "one"); err != nil {
+		t.Fatal(err)
+	}
+	if err := put(CreateFileUnchecked, "two"); err == nil {
+		t.Fatal("second unchecked create succeeded")
+	}
+	if b, _ := os.ReadFile(path); string(b) != "one" {
+		t.Errorf("content %q, want %q", b, "one")
+	}
+	if names, _, _ := ListDir(dir); len(names) != 1 {
+		t.Errorf("left behind: %v", names)
+	}
+	lockPath := filepath.Join(dir, "_lock")
+	if _, _, err := AcquireLock(lockPath, time.Now(), false); err == nil {
+		t.Fatal("checked lock without links succeeded")
+	}
+	l, _, err := AcquireLock(lockPath, time.Now(), true)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, _, err := AcquireLock(lockPath, time.Now(), true); !errors.Is(err, ErrLocked) {
+		t.Fatalf("second unchecked lock: %v, want ErrLocked", err)
+	}
+	if err := l.Release(); err != nil {
+		t.Fatal(err)
 	}
 }

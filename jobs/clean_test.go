@@ -123,7 +123,7 @@ func TestSecondCommitRefused(t *testing.T) {
 	first, _ := os.ReadFile(path)
 	m := readManifestT(t, path)
 	m.CreatedAt = "2030-01-01T00:00:00Z"
-	err := writeManifest(path, m)
+	err := writeManifest(path, m, false)
 	if !errors.Is(err, fs.ErrExist) || !errors.Is(err, ErrOutputNotEmpty) || !strings.Contains(err.Error(), path) {
 		t.Fatalf("second commit: %v; want a refusal naming %s", err, path)
 	}

@@ -17,7 +17,7 @@ func statsDoc(t *testing.T, path string, cols ...manifests.Column) {
 	t.Helper()
 	m := &manifests.Manifest{ManifestVersion: manifests.Version, Kind: manifests.KindStatistics,
 		Job: manifests.Job{Settings: manifests.Settings{Input: "lake"}}, Columns: cols, Inputs: []manifests.Input{}, CreatedAt: "2026-01-01T00:00:00Z"}
-	if err := writeManifest(path, m); err != nil {
+	if err := writeManifest(path, m, false); err != nil {
 		t.Fatal(err)
 	}
 }

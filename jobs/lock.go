@@ -27,7 +27,7 @@ var lockRenewEvery = arrowio.LockLease / 4
 // The returned function stops the renewal and releases the lock.
 func lockOutput(cfg *Config, log *runLog) (func(), error) {
 	path := arrowio.Join(cfg.Output, lockName)
-	l, stale, err := arrowio.AcquireLock(path, cfg.Now())
+	l, stale, err := arrowio.AcquireLock(path, cfg.Now(), cfg.SkipCommitCheck)
 	if errors.Is(err, arrowio.ErrLocked) {
 		return nil, fmt.Errorf("output %s is in use by another run (a dead run's lock is taken over when its lease ends; remove %s sooner only if that run is dead): %w", cfg.Output, path, err)
 	}

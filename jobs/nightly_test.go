@@ -379,7 +379,7 @@ func TestNightlyLock(t *testing.T) {
 	cfg := testConfig(t, lake, filepath.Join(tmp, "out"), 1)
 	cfg.Overwrite = true
 
-	held, _, err := arrowio.AcquireLock(filepath.Join(cfg.Output, lockName), cfg.Now())
+	held, _, err := arrowio.AcquireLock(filepath.Join(cfg.Output, lockName), cfg.Now(), false)
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -107,10 +107,13 @@ func checkCommitSupport(cfg *Config) error {
 		return nil
 	}
 	err := arrowio.CheckConditionalCreate(cfg.Output)
-	if errors.Is(err, arrowio.ErrNoConditionalCreate) {
+	switch {
+	case errors.Is(err, arrowio.ErrNoConditionalCreate):
 		return fmt.Errorf("%w; two runs could then both commit %s: use a store that honours If-None-Match, or give --skip-commit-check if only one run at a time writes there", err, cfg.Output)
+	case err != nil:
+		return fmt.Errorf("%w (the commit needs create-only-if-absent writes; --skip-commit-check runs without them if only one run at a time writes there)", err)
 	}
-	return err
+	return nil
 }
 
 // measureAll is pass one of run and measure: discovery, the fit slice and
@@ -472,7 +475,7 @@ func (p *plan) commit(ctx context.Context, cfg *Config, m *manifests.Manifest, o
 			return err
 		}
 	}
-	if err := writeManifest(manifestPath, m); err != nil {
+	if err := writeManifest(manifestPath, m, cfg.SkipCommitCheck); err != nil {
 		return err
 	}
 	if err := arrowio.Remove(arrowio.Join(cfg.Output, markerName)); err != nil {
@@ -492,8 +495,16 @@ func (p *plan) commit(ctx context.Context, cfg *Config, m *manifests.Manifest, o
 // there (arrowio.CreateFile), so that of two runs that reach their commit
 // at once only one succeeds. The earlier manifest of a dataset being
 // replaced was removed by prepareOutput.
-func writeManifest(path string, m *manifests.Manifest) error {
-	err := arrowio.CreateFile(path, func(w io.Writer) error { return manifests.Encode(w, m) })
+//
+// With unchecked (--skip-commit-check) a store that cannot carry out the
+// conditional create gets a check for an existing manifest and a plain
+// write instead (arrowio.CreateFileUnchecked).
+func writeManifest(path string, m *manifests.Manifest, unchecked bool) error {
+	create := arrowio.CreateFile
+	if unchecked {
+		create = arrowio.CreateFileUnchecked
+	}
+	err := create(path, func(w io.Writer) error { return manifests.Encode(w, m) })
 	if errors.Is(err, arrowio.ErrExist) {
 		return fmt.Errorf("%w: %s appeared while this run was writing: another run committed this output first; nothing of this run is committed: %w", ErrOutputNotEmpty, path, err)
 	}

@@ -76,7 +76,7 @@ func TestS3SecondCommitRefused(t *testing.T) {
 		t.Fatal(err)
 	}
 	m.CreatedAt = "2030-01-01T00:00:00Z"
-	err = writeManifest(path, m)
+	err = writeManifest(path, m, false)
 	if !errors.Is(err, arrowio.ErrExist) || !errors.Is(err, ErrOutputNotEmpty) || !strings.Contains(err.Error(), path) {
 		t.Fatalf("second commit: %v; want a refusal naming %s", err, path)
 	}
