@@ -55,6 +55,12 @@ type Reader struct {
 // Parquet (too short, no magic bytes, undecodable footer) gives an error
 // wrapping ErrNotParquet that reads "open path: parquet: ...".
 func Open(path string, mem memory.Allocator) (*Reader, error) {
+	return OpenContext(background, path, mem)
+}
+
+// OpenContext is Open whose reads stop when ctx is done: on an object
+// store a request in flight is cancelled, not waited for.
+func OpenContext(ctx context.Context, path string, mem memory.Allocator) (*Reader, error) {
 	if mem == nil {
 		mem = memory.DefaultAllocator
 	}
@@ -62,7 +68,7 @@ func Open(path string, mem memory.Allocator) (*Reader, error) {
 	if err != nil {
 		return nil, err
 	}
-	obj, err := st.Open(background, key)
+	obj, err := st.Open(ctx, key)
 	if err != nil {
 		return nil, err
 	}

@@ -55,6 +55,12 @@ var (
 	s3BodyAttempts = 4
 	s3BodyBackoff  = 200 * time.Millisecond
 
+	// s3RequestTimeout bounds one whole request, body included, so that a
+	// server that stops sending in the middle of a body does not hang the
+	// run; the request is then retried (reads) or the write fails. It is
+	// far longer than one read-ahead window or upload part takes.
+	s3RequestTimeout = 10 * time.Minute
+
 	// s3ResponseTimeout bounds the wait for the headers of a response, so
 	// that a request to a hung server fails (and is retried) instead of
 	// hanging the run.
@@ -114,7 +120,7 @@ func openS3Store(ctx context.Context, bucket string, opts S3Options) (Store, err
 		if b, ok := o.HTTPClient.(*awshttp.BuildableClient); ok {
 			o.HTTPClient = b.WithTransportOptions(func(t *http.Transport) {
 				t.ResponseHeaderTimeout = s3ResponseTimeout
-			})
+			}).WithTimeout(s3RequestTimeout)
 		}
 		o.HTTPClient = countingClient{o.HTTPClient, &st.requests}
 	})

@@ -45,6 +45,8 @@ type fakeS3 struct {
 	// loseResponses: carry out this many requests but answer them with
 	// 503, as when a response is lost on the way back.
 	loseResponses atomic.Int64
+	// stallGets: ranged GETs get no answer until the client gives up.
+	stallGets atomic.Bool
 
 	creates atomic.Int64 // CreateMultipartUpload requests seen
 }
@@ -65,6 +67,10 @@ func (f *fakeS3) ServeHTTP(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	f.loseResponses.Store(0)
+	if f.stallGets.Load() && r.Method == http.MethodGet && r.Header.Get("Range") != "" {
+		<-r.Context().Done()
+		return
+	}
 	if r.Method == http.MethodPost && r.URL.Query().Has("uploads") {
 		f.creates.Add(1)
 	}
@@ -756,5 +762,28 @@ func TestS3Parquet(t *testing.T) {
 			}
 			i++
 		}
+	}
+}
+
+// A read in flight is cancelled with the context the object was opened
+// with, instead of waiting for a server that does not answer.
+func TestS3ReadCancelled(t *testing.T) {
+	st, fake := newTestS3(t)
+	put(t, st, "x.bin", randomBytes(1000, 1))
+	ctx, cancel := context.WithCancel(context.Background())
+	obj, err := st.Open(ctx, "x.bin")
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer obj.Close()
+	fake.stallGets.Store(true)
+	time.AfterFunc(50*time.Millisecond, cancel)
+	start := time.Now()
+	_, err = obj.ReadAt(make([]byte, 10), 0)
+	if !errors.Is(err, context.Canceled) || !strings.Contains(err.Error(), "s3://bkt/x.bin") {
+		t.Fatalf("read after cancel: %v; want context.Canceled naming the object", err)
+	}
+	if d := time.Since(start); d > 5*time.Second {
+		t.Errorf("cancelled read returned after %s", d)
 	}
 }

@@ -84,7 +84,7 @@ func passOne(ctx context.Context, cfg *Config, p *plan) ([]fileResult, error) {
 // a file the fit filter leaves out).
 func measureFile(ctx context.Context, cfg *Config, p *plan, i int) (fileResult, error) {
 	f := p.Files[i]
-	r, err := arrowio.Open(f.Abs, memory.DefaultAllocator)
+	r, err := arrowio.OpenContext(ctx, f.Abs, memory.DefaultAllocator)
 	if err != nil {
 		return fileResult{}, err
 	}

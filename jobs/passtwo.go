@@ -66,7 +66,7 @@ func outputSchema(in *arrow.Schema, idx []int, float32Out bool) *arrow.Schema {
 // scaleFile streams one input file into its scaled output.
 func scaleFile(ctx context.Context, cfg *Config, p *plan, i int, params []stats.Params, meta string, hashInputs bool) (written, error) {
 	f := p.Files[i]
-	r, err := arrowio.Open(f.Abs, memory.DefaultAllocator)
+	r, err := arrowio.OpenContext(ctx, f.Abs, memory.DefaultAllocator)
 	if err != nil {
 		return written{}, err
 	}
