@@ -19,6 +19,9 @@ func ReadFooter(path string) (rows int64, schema *arrow.Schema, meta map[string]
 	if err != nil {
 		return 0, nil, nil, err
 	}
+	if fo, ok := f.(interface{ footerOnly() }); ok {
+		fo.footerOnly()
+	}
 	// No column data is read, so no Arrow buffers are allocated.
 	r, err := newReader(path, f, memory.DefaultAllocator)
 	if err != nil {

@@ -229,7 +229,7 @@ func (s *s3Bucket) Open(ctx context.Context, key string) (Object, error) {
 	if err != nil {
 		return nil, s.pathErr("open", key, err)
 	}
-	return &s3Object{st: s, ctx: ctx, key: key, size: aws.ToInt64(out.ContentLength), etag: out.ETag}, nil
+	return &s3Object{st: s, ctx: ctx, key: key, size: aws.ToInt64(out.ContentLength), etag: out.ETag, readAhead: s3ReadAhead}, nil
 }
 
 // Delete sends a DeleteObject request.

@@ -27,6 +27,9 @@ type s3Object struct {
 	key  string
 	size int64
 	etag *string // If-Match of every GET; nil if HeadObject gave none
+	// readAhead is the least a fetch asks for: s3ReadAhead, or less for
+	// an object opened for its footer only (footerOnly).
+	readAhead int64
 
 	mu     sync.Mutex
 	win    []byte // the bytes at winOff, from the last small fetch
@@ -39,6 +42,15 @@ func (o *s3Object) Size() int64 { return o.size }
 // preferWholeChunks marks a remote object: the Parquet reader then reads
 // each column chunk in one ReadAt, that is one request.
 func (o *s3Object) preferWholeChunks() {}
+
+// footerOnly shrinks the read-ahead to footerReadAhead, for an object of
+// which only the Parquet footer will be read (ReadFooter): one request of
+// a few KiB instead of a whole window.
+func (o *s3Object) footerOnly() { o.readAhead = footerReadAhead }
+
+// footerReadAhead holds the footer of most Parquet files, whose metadata
+// grows with columns × row groups.
+const footerReadAhead = 64 << 10
 
 // Close drops the read-ahead window; later reads fail.
 func (o *s3Object) Close() error {
@@ -76,7 +88,7 @@ func (o *s3Object) ReadAt(p []byte, off int64) (int, error) {
 	}
 	o.mu.Unlock()
 
-	if int64(len(want)) >= s3ReadAhead {
+	if int64(len(want)) >= o.readAhead {
 		// Large reads (whole column chunks) go straight into p.
 		if err := o.fetch(want, off); err != nil {
 			return 0, err
@@ -87,8 +99,8 @@ func (o *s3Object) ReadAt(p []byte, off int64) (int, error) {
 	// end: a Parquet reader's first reads are the footer's, at the end,
 	// and a window ending at the end then holds the last column chunks
 	// too (for a file smaller than the window, all of it).
-	start := max(0, min(off, o.size-s3ReadAhead))
-	buf := make([]byte, min(s3ReadAhead, o.size-start))
+	start := max(0, min(off, o.size-o.readAhead))
+	buf := make([]byte, min(o.readAhead, o.size-start))
 	if err := o.fetch(buf, start); err != nil {
 		return 0, err
 	}

@@ -78,3 +78,44 @@ func TestS3ParquetThroughLocations(t *testing.T) {
 		t.Errorf("reading and hashing a %d-byte file in %d row groups took %d requests, want 2", size, r.NumRowGroups(), n)
 	}
 }
+
+// ReadFooter of an S3 object costs a HEAD and one small GET, not a
+// read-ahead window.
+func TestS3ReadFooterIsSmall(t *testing.T) {
+	st, fake := newTestS3(t)
+	setTunable(t, &s3ReadAhead, 8<<20)
+	SetS3Options(S3Options{Endpoint: fake.url, PathStyle: true, Region: "us-east-1"})
+	t.Cleanup(func() { SetS3Options(S3Options{}) })
+	loc := "s3://" + testBucket + "/f/x.parquet"
+	w := writeRows(t, memory.DefaultAllocator, loc, mixedRows(200000), 50000, WriteOptions{})
+	if w.Bytes < 2*footerReadAhead {
+		t.Fatalf("test file of %d bytes is too small to tell", w.Bytes)
+	}
+	located, _, err := Locate(loc)
+	if err != nil {
+		t.Fatal(err)
+	}
+	bucket := located.(*s3Bucket)
+	before := bucket.requests.Load()
+	if n, _, _, err := ReadFooter(loc); err != nil || n != 200000 {
+		t.Fatalf("ReadFooter: %d, %v", n, err)
+	}
+	if n := bucket.requests.Load() - before; n != 2 {
+		t.Errorf("ReadFooter took %d requests, want 2 (HEAD, one GET)", n)
+	}
+	// What that GET fetched: the footer's window, not a read-ahead one.
+	obj, err := st.Open(context.Background(), "f/x.parquet")
+	if err != nil {
+		t.Fatal(err)
+	}
+	o := obj.(*s3Object)
+	o.footerOnly()
+	r, err := newReader(loc, o, memory.DefaultAllocator)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer r.Close()
+	if got := len(o.win); got == 0 || got > footerReadAhead {
+		t.Errorf("footer read fetched a window of %d bytes, want at most %d", got, footerReadAhead)
+	}
+}
