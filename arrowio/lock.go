@@ -20,6 +20,9 @@ type LockHolder struct {
 	PID     int    `json:"pid"`
 	Host    string `json:"host"`
 	Started string `json:"started"` // RFC 3339, UTC
+	// PIDNamespace is the holder's PID namespace (Linux), so that a
+	// process is judged dead only from inside the namespace it ran in.
+	PIDNamespace string `json:"pid_ns,omitempty"`
 	// Expires ends the holder's lease unless it renews it (Lock.Renew)
 	// first; RFC 3339, UTC. Empty in lock files of earlier versions,
 	// which never expire.
@@ -77,7 +80,7 @@ func AcquireLock(path string, now time.Time, unchecked bool) (*Lock, *LockHolder
 	if err != nil {
 		return nil, nil, pathError("lock", path, fmt.Errorf("host name: %w", err))
 	}
-	me := LockHolder{PID: os.Getpid(), Host: host, Started: now.UTC().Format(time.RFC3339)}
+	me := LockHolder{PID: os.Getpid(), Host: host, Started: now.UTC().Format(time.RFC3339), PIDNamespace: pidNamespace()}
 	content, err := me.encode(now)
 	if err != nil {
 		return nil, nil, pathError("lock", path, err)
@@ -123,7 +126,10 @@ func AcquireLock(path string, now time.Time, unchecked bool) (*Lock, *LockHolder
 		if err := json.Unmarshal(old, &h); err != nil || h.PID <= 0 || h.Host == "" {
 			return nil, nil, pathError("lock", path, fmt.Errorf("%w: unreadable lock file (%q); remove it if no lakescale run is writing here", ErrLocked, bytes.TrimSpace(old)))
 		}
-		dead := h.Host == host && !processAlive(h.PID)
+		// Only a process of this host and PID namespace can be checked
+		// (a lock file of an earlier version names no namespace).
+		sameNS := h.PIDNamespace == "" || h.PIDNamespace == me.PIDNamespace
+		dead := h.Host == host && sameNS && !processAlive(h.PID)
 		if !dead && !h.expired(now) || attempt >= 3 {
 			until := ""
 			if h.Expires != "" {

@@ -246,3 +246,17 @@ func TestLockRenew(t *testing.T) {
 		t.Fatalf("release removed the new holder's lock: %v", err)
 	}
 }
+
+// A dead pid in another PID namespace of the same host name (a container
+// sharing the host's name) says nothing about that process: not taken over.
+func TestLockOtherPIDNamespace(t *testing.T) {
+	if pidNamespace() == "" {
+		t.Skip("no PID namespace to compare here")
+	}
+	path := filepath.Join(t.TempDir(), "_lock")
+	host, _ := os.Hostname()
+	writeHolder(t, path, LockHolder{PID: deadPID(t), Host: host, Started: "2026-02-28T02:00:00Z", PIDNamespace: "pid:[1]", Expires: "2099-01-01T00:00:00Z"})
+	if _, _, err := AcquireLock(path, lockTime, false); !errors.Is(err, ErrLocked) {
+		t.Fatalf("lock of another PID namespace: %v, want ErrLocked", err)
+	}
+}

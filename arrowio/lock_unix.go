@@ -4,6 +4,7 @@ package arrowio
 
 import (
 	"errors"
+	"os"
 	"syscall"
 )
 
@@ -13,4 +14,16 @@ import (
 func processAlive(pid int) bool {
 	err := syscall.Kill(pid, 0)
 	return err == nil || !errors.Is(err, syscall.ESRCH)
+}
+
+// pidNamespace names this process's PID namespace on Linux (the target
+// of /proc/self/ns/pid, "pid:[inode]"; proc(5)), or "" where there is
+// none to read. Two containers can share a host name but not see each
+// other's processes; the namespace tells them apart.
+func pidNamespace() string {
+	ns, err := os.Readlink("/proc/self/ns/pid")
+	if err != nil {
+		return ""
+	}
+	return ns
 }
