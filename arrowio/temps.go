@@ -5,6 +5,7 @@ import (
 	"errors"
 	"io/fs"
 	"os"
+	"path"
 	"path/filepath"
 )
 
@@ -13,19 +14,17 @@ import (
 // writers use) and reports how many it removed. Symbolic links below
 // root are not followed. A missing root holds no temporary files and is not an error.
 //
-// On an object store writes leave no temporary objects; there it aborts
-// the incomplete multipart uploads below root instead, where the store
-// can list them.
+// On an object store, where writes leave no temporary objects, it removes
+// objects with such names (a start-up probe of a killed run) and aborts
+// the incomplete multipart uploads below root, where the store can list
+// them.
 func RemoveTemps(loc string) (int, error) {
 	st, root, err := Locate(loc)
 	if err != nil {
 		return 0, err
 	}
 	if st != Local {
-		if a, ok := st.(uploadAborter); ok {
-			return a.abortUploads(background, root)
-		}
-		return 0, nil
+		return removeRemoteTemps(st, root)
 	}
 	if _, err := os.Lstat(root); errors.Is(err, fs.ErrNotExist) {
 		return 0, nil
@@ -96,4 +95,30 @@ func RemoveEmptyDirs(loc string) error {
 		}
 	}
 	return nil
+}
+
+// removeRemoteTemps is RemoveTemps on an object store.
+func removeRemoteTemps(st Store, root string) (int, error) {
+	objs, err := st.List(background, root)
+	if err != nil {
+		return 0, err
+	}
+	n := 0
+	for _, o := range objs {
+		if isTempName(path.Base(o.Key)) {
+			key := o.Key
+			if root != "" {
+				key = root + "/" + o.Key
+			}
+			if err := st.Delete(background, key); err != nil {
+				return n, err
+			}
+			n++
+		}
+	}
+	if a, ok := st.(uploadAborter); ok {
+		m, err := a.abortUploads(background, root)
+		return n + m, err
+	}
+	return n, nil
 }
