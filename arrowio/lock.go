@@ -231,3 +231,28 @@ func (l *Lock) Release() error {
 	}
 	return nil
 }
+
+// HeldLock returns the holder of the lock file at path while it holds it:
+// nil when there is no lock file or its lease ended before now. A lock
+// file that cannot be decoded counts as held, by an unknown holder.
+func HeldLock(path string, now time.Time) (*LockHolder, error) {
+	st, key, err := Locate(path)
+	if err != nil {
+		return nil, err
+	}
+	b, err := readAll(background, st, key)
+	if errors.Is(err, fs.ErrNotExist) {
+		return nil, nil
+	}
+	if err != nil {
+		return nil, pathError("lock", path, unwrapPath(err))
+	}
+	var h LockHolder
+	if err := json.Unmarshal(b, &h); err != nil {
+		return &LockHolder{}, nil
+	}
+	if h.expired(now) {
+		return nil, nil
+	}
+	return &h, nil
+}

@@ -413,6 +413,16 @@ func openShardOutput(cfg *Config) error {
 	case outForeign:
 		return fmt.Errorf("%w: %s holds %s but no %s marker, so lakescale did not write it; want an absent or empty directory, or the output of this sharded apply", ErrOutputNotEmpty, cfg.Output, foreign, markerName)
 	case outUncommitted:
+		// Shards share the output with each other, not with a run or
+		// commit holding its lock.
+		lock := arrowio.Join(cfg.Output, lockName)
+		h, err := arrowio.HeldLock(lock, cfg.Now())
+		if err != nil {
+			return err
+		}
+		if h != nil {
+			return fmt.Errorf("%w: %s is locked by pid %d on host %s since %s (%s): a sharded apply does not write into an output that a run or commit is working on", ErrOutputNotEmpty, cfg.Output, h.PID, h.Host, h.Started, lock)
+		}
 		return nil
 	}
 	if err := arrowio.MkdirAll(cfg.Output); err != nil {

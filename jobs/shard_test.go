@@ -391,6 +391,19 @@ func TestApplyShardOutputChecks(t *testing.T) {
 	if err := ApplyShard(context.Background(), f.applyConfig(t, out), Shard{Index: 0, Count: 2}); !errors.Is(err, ErrUsage) {
 		t.Fatalf("no work folder: %v, want ErrUsage", err)
 	}
+	// An uncommitted output that a run holds the lock of is not shared.
+	busy := filepath.Join(f.tmp, "busy")
+	writeText(t, filepath.Join(busy, markerName), "run started\n")
+	writeText(t, filepath.Join(busy, lockName), `{"pid":1,"host":"elsewhere","started":"2026-01-02T03:04:05Z","expires":"2099-01-01T00:00:00Z"}`+"\n")
+	err = ApplyShard(context.Background(), f.applyConfig(t, busy), Shard{Index: 0, Count: 2, Work: work})
+	if !errors.Is(err, ErrOutputNotEmpty) || !strings.Contains(err.Error(), "locked by pid 1 on host elsewhere") {
+		t.Fatalf("locked output: %v", err)
+	}
+	// Once that lease has ended the shard goes ahead.
+	writeText(t, filepath.Join(busy, lockName), `{"pid":1,"host":"elsewhere","started":"2026-01-02T03:04:05Z","expires":"2026-01-01T00:00:00Z"}`+"\n")
+	if err := ApplyShard(context.Background(), f.applyConfig(t, busy), Shard{Index: 0, Count: 2, Work: work}); err != nil {
+		t.Fatalf("output with an expired lock: %v", err)
+	}
 	mcfg := f.measureConfig(t, "")
 	mcfg.StatsPath = filepath.Join(f.tmp, "x.json")
 	if err := MeasureShard(context.Background(), mcfg, Shard{Index: 0, Count: 2, Work: work}); !errors.Is(err, ErrUsage) {
