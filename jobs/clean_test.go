@@ -9,6 +9,7 @@ import (
 	"os"
 	"path/filepath"
 	"strings"
+	"sync"
 	"testing"
 
 	"github.com/lakescale/lakescale/arrowio"
@@ -162,5 +163,40 @@ func TestManifestWinsOverMarker(t *testing.T) {
 	}
 	if err := Verify(context.Background(), io.Discard, out); err != nil {
 		t.Fatal(err)
+	}
+}
+
+// Commit re-reads each output's footer: a file carrying other parameters
+// than the run's (here swapped in under the run's feet) is not committed.
+func TestCommitChecksFooterParameters(t *testing.T) {
+	tmp := t.TempDir()
+	lake := filepath.Join(tmp, "lake")
+	writeDemoLake(t, lake)
+	other := filepath.Join(tmp, "other")
+	cfg, err := Load("", Overrides{Input: &lake, Output: &other, Method: ptr("minmax")})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := Run(context.Background(), cfg); err != nil {
+		t.Fatal(err)
+	}
+	out := filepath.Join(tmp, "out")
+	defer func(h func(string)) { hookFileWritten = h }(hookFileWritten)
+	var once sync.Once
+	hookFileWritten = func(rel string) {
+		once.Do(func() {
+			b, err := os.ReadFile(filepath.Join(other, rel))
+			if err != nil {
+				t.Error(err)
+			}
+			writeText(t, filepath.Join(out, rel), string(b))
+		})
+	}
+	err = Run(context.Background(), testConfig(t, lake, out, 1))
+	if err == nil || !strings.Contains(err.Error(), "parameters in its footer") {
+		t.Fatalf("commit over a file of other parameters: %v", err)
+	}
+	if _, err := os.Stat(filepath.Join(out, ManifestName)); !errors.Is(err, fs.ErrNotExist) {
+		t.Fatalf("manifest written: %v", err)
 	}
 }

@@ -438,14 +438,21 @@ func prepareOutput(cfg *Config) error {
 func (p *plan) commit(ctx context.Context, cfg *Config, m *manifests.Manifest, outs []written, log *runLog) error {
 	want := make(map[string]bool, len(p.Files))
 	var rows int64
+	// Each output must carry the parameters being committed: a file left
+	// by a run with other parameters (a shard re-run with another --params
+	// and killed) is not committed as this run's.
+	params := fileMeta(m)
 	for i, f := range p.Files {
 		dst := arrowio.Join(cfg.Output, f.Rel)
-		n, _, _, err := arrowio.ReadFooter(dst)
+		n, _, meta, err := arrowio.ReadFooter(dst)
 		if err != nil {
 			return err
 		}
 		if n != outs[i].In.Rows {
 			return fmt.Errorf("check %s: %d rows, want %d", dst, n, outs[i].In.Rows)
+		}
+		if meta[p.metaKey()] != params {
+			return fmt.Errorf("check %s: the parameters in its footer (%s) are not the ones being committed; run the shard or job that writes it again", dst, p.metaKey())
 		}
 		want[f.Rel] = true
 		rows += n
