@@ -53,8 +53,11 @@ const writeBufferSize = 256 << 10
 // bytes go to a temporary file ".<name>.tmp-*" in the same folder, which is
 // synced, closed and renamed over path, after which the folder is synced
 // (on an object store, one upload that appears whole or not at all).
-// Missing parent folders are created. On any error nothing appears at
-// path (an existing file at path is left as it was). Errors from write
+// Missing parent folders are created. On any error nothing new appears at
+// path and an existing file there is left as it was, with one exception
+// on local disk: when the folder cannot be synced after the rename, the
+// new file is removed again, so that a caller treating it as a commit
+// point does not find it, and the old one is gone too. Errors from write
 // are returned annotated with "write path".
 func WriteFileAtomic(path string, write func(io.Writer) error) error {
 	return writeFile(path, false, write)

@@ -2,10 +2,12 @@
 //
 // Every function takes locations: plain paths, file:///absolute/path or
 // s3://bucket/prefix. Locate maps a location to its Store (the local disk,
-// or one S3 bucket through the AWS SDK) and a key; a Store lists, reads
-// ranges of, writes whole, creates only-if-absent and deletes objects,
-// and every other function here is built on those five operations, so
-// that each works the same on both backends.
+// or one S3 bucket through the AWS SDK) and a key; a Store describes,
+// lists, reads ranges of, writes whole (or creates only if absent) and
+// deletes objects, and the functions here are built on those operations,
+// so that each works the same on both backends. What only a local disk
+// has (folders to create and prune, symbolic links, fsync of folders,
+// temporary names) is handled beside the Store, for local locations only.
 //
 // It discovers partitioned Parquet datasets (flat or Hive-style key=value
 // folders), opens Parquet files for streaming reads of selected columns

@@ -218,7 +218,7 @@ func Dir(loc string) string {
 // request with its own retries and timeouts.
 var background = context.Background()
 
-// ReadAll reads a whole object through a Store.
+// readAll reads a whole object through a Store.
 func readAll(ctx context.Context, st Store, key string) ([]byte, error) {
 	obj, err := st.Open(ctx, key)
 	if err != nil {

@@ -10,7 +10,7 @@ import (
 )
 
 // lockName is the lock file inside an output tree. It starts with '_' so
-// that discovery ignores it, and prepareOutput does not count it as a
+// that discovery ignores it, and outputState does not count it as a
 // foreign file.
 const lockName = "_lock"
 
