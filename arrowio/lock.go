@@ -2,6 +2,8 @@ package arrowio
 
 import (
 	"bytes"
+	"crypto/rand"
+	"encoding/hex"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -23,6 +25,9 @@ type LockHolder struct {
 	// PIDNamespace is the holder's PID namespace (Linux), so that a
 	// process is judged dead only from inside the namespace it ran in.
 	PIDNamespace string `json:"pid_ns,omitempty"`
+	// Token is random, so that two acquisitions never write the same
+	// bytes: a lock file holding this lock's bytes is this lock.
+	Token string `json:"token,omitempty"`
 	// Expires ends the holder's lease unless it renews it (Lock.Renew)
 	// first; RFC 3339, UTC. Empty in lock files of earlier versions,
 	// which never expire.
@@ -80,7 +85,11 @@ func AcquireLock(path string, now time.Time, unchecked bool) (*Lock, *LockHolder
 	if err != nil {
 		return nil, nil, pathError("lock", path, fmt.Errorf("host name: %w", err))
 	}
-	me := LockHolder{PID: os.Getpid(), Host: host, Started: now.UTC().Format(time.RFC3339), PIDNamespace: pidNamespace()}
+	var token [8]byte
+	if _, err := rand.Read(token[:]); err != nil {
+		return nil, nil, pathError("lock", path, err)
+	}
+	me := LockHolder{PID: os.Getpid(), Host: host, Started: now.UTC().Format(time.RFC3339), PIDNamespace: pidNamespace(), Token: hex.EncodeToString(token[:])}
 	content, err := me.encode(now)
 	if err != nil {
 		return nil, nil, pathError("lock", path, err)

@@ -2,8 +2,11 @@ package arrowio
 
 import (
 	"context"
+	"errors"
 	"io"
+	"strings"
 	"testing"
+	"time"
 
 	"github.com/apache/arrow/go/v17/arrow/memory"
 )
@@ -117,5 +120,48 @@ func TestS3ReadFooterIsSmall(t *testing.T) {
 	defer r.Close()
 	if got := len(o.win); got == 0 || got > footerReadAhead {
 		t.Errorf("footer read fetched a window of %d bytes, want at most %d", got, footerReadAhead)
+	}
+}
+
+// The output lock on S3: taken with If-None-Match, refused while held,
+// renewed, taken over once its lease ended, and released.
+func TestS3Lock(t *testing.T) {
+	_, fake := newTestS3(t)
+	SetS3Options(S3Options{Endpoint: fake.url, PathStyle: true, Region: "us-east-1"})
+	t.Cleanup(func() { SetS3Options(S3Options{}) })
+	loc := "s3://" + testBucket + "/out/_lock"
+	l, stale, err := AcquireLock(loc, lockTime, false)
+	if err != nil || stale != nil {
+		t.Fatalf("acquire: %v, stale %v", err, stale)
+	}
+	if _, _, err := AcquireLock(loc, lockTime, false); !errors.Is(err, ErrLocked) || !strings.Contains(err.Error(), loc) {
+		t.Fatalf("second acquire: %v, want ErrLocked naming %s", err, loc)
+	}
+	if err := l.Renew(lockTime.Add(time.Minute)); err != nil {
+		t.Fatal(err)
+	}
+	if h, err := HeldLock(loc, lockTime.Add(5*time.Minute)); err != nil || h == nil {
+		t.Fatalf("HeldLock while the lease runs: %v, %v", h, err)
+	}
+	// A run on another machine, after the lease ran out.
+	later := lockTime.Add(time.Minute + LockLease + time.Second)
+	l2, stale, err := AcquireLock(loc, later, false)
+	if err != nil || stale == nil {
+		t.Fatalf("take-over after the lease: %v, stale %v", err, stale)
+	}
+	if err := l.Renew(later); !errors.Is(err, ErrLockLost) {
+		t.Fatalf("renew after take-over: %v, want ErrLockLost", err)
+	}
+	if err := l.Release(); err != nil {
+		t.Fatal(err)
+	}
+	if h, _ := HeldLock(loc, later); h == nil {
+		t.Fatal("the old holder's release removed the new holder's lock")
+	}
+	if err := l2.Release(); err != nil {
+		t.Fatal(err)
+	}
+	if ok, err := Exists(loc); ok || err != nil {
+		t.Fatalf("lock still there after release: %v %v", ok, err)
 	}
 }
