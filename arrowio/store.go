@@ -207,7 +207,15 @@ func Join(loc string, elem ...string) string {
 func Dir(loc string) string {
 	for _, scheme := range []string{schemeS3, schemeFile} {
 		if rest, ok := strings.CutPrefix(loc, scheme); ok {
-			return scheme + path.Dir(strings.TrimSuffix(rest, "/"))
+			trimmed := strings.TrimSuffix(rest, "/")
+			d := path.Dir(trimmed)
+			switch {
+			case trimmed == "": // file:/// is the root
+				return loc
+			case d == ".": // a bucket has no parent
+				d = trimmed
+			}
+			return scheme + d
 		}
 	}
 	return filepath.Dir(loc)

@@ -29,6 +29,8 @@ func TestJoinAndDir(t *testing.T) {
 		{Dir("s3://b/job.toml"), "s3://b"},
 		{Dir("file:///data/job.toml"), "file:///data"},
 		{Dir("jobs/job.toml"), "jobs"},
+		{Dir("s3://b"), "s3://b"},
+		{Dir("file:///"), "file:///"},
 	} {
 		if c.got != c.want {
 			t.Errorf("got %q, want %q", c.got, c.want)
