@@ -207,6 +207,23 @@ func (l *Lock) Renew(now time.Time) error {
 	return nil
 }
 
+// Check re-reads the lock file and fails with ErrLockLost when it no
+// longer holds this lock. Callers check just before an irreversible step
+// (removing a manifest, committing one).
+func (l *Lock) Check() error {
+	if l == nil || l.content == nil {
+		return nil
+	}
+	cur, err := readAll(background, l.st, l.key)
+	if err != nil && !errors.Is(err, fs.ErrNotExist) {
+		return pathError("check lock", l.path, unwrapPath(err))
+	}
+	if err != nil || !bytes.Equal(cur, l.content) {
+		return pathError("check lock", l.path, ErrLockLost)
+	}
+	return nil
+}
+
 // Path is the lock file's path.
 func (l *Lock) Path() string { return l.path }
 

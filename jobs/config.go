@@ -2,6 +2,7 @@ package jobs
 
 import (
 	"bytes"
+	"context"
 	"errors"
 	"fmt"
 	"io"
@@ -72,9 +73,13 @@ type Config struct {
 	// commit may remove (set by prepareOutput).
 	owned  map[string]bool
 	ownAll bool
-	// lockLost reports, once the output's lock has been taken over by
-	// another run, why this run must not commit (set by lockOutput).
-	lockLost func() error
+	// lockCheck fails once the output's lock has been taken over by
+	// another run (set by lockOutput); checked before prepareOutput
+	// removes anything and before the commit.
+	lockCheck func() error
+	// stop, when set by a command, cancels its work with a cause; the
+	// lock renewal calls it when the lock is lost.
+	stop context.CancelCauseFunc
 
 	Version string           // program version, recorded in the manifest
 	Now     func() time.Time // clock for created_at

@@ -31,6 +31,8 @@ import (
 // from cfg.ParamsPath's for a selected column is refused, as is a file
 // that was already mapped back.
 func Invert(ctx context.Context, cfg Config, columns []string) (err error) {
+	ctx, cfg.stop = context.WithCancelCause(ctx)
+	defer cfg.stop(nil)
 	log, end, err := begin(&cfg, "invert", true, cfg.ParamsPath, "--params")
 	if err != nil {
 		return err

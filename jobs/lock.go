@@ -3,7 +3,7 @@ package jobs
 import (
 	"errors"
 	"fmt"
-	"sync/atomic"
+	"sync"
 	"time"
 
 	"github.com/lakescale/lakescale/arrowio"
@@ -13,6 +13,10 @@ import (
 // that discovery ignores it, and outputState does not count it as a
 // foreign file.
 const lockName = "_lock"
+
+// hookLockLost is called when the renewal finds the lock lost; tests use
+// it to wait for that moment.
+var hookLockLost = func() {}
 
 // lockRenewEvery is how often a held lock's lease is renewed: a quarter of
 // the lease, so that three renewals in a row may fail (a slow store)
@@ -39,10 +43,23 @@ func lockOutput(cfg *Config, log *runLog) (func(), error) {
 		log.warn("took over a stale lock", "pid", stale.PID, "host", stale.Host, "started", stale.Started)
 	}
 	stop, done := make(chan struct{}), make(chan struct{})
-	var lost atomic.Value // the ErrLockLost error, once the lock is lost
-	cfg.lockLost = func() error {
-		if err, ok := lost.Load().(error); ok {
-			return fmt.Errorf("output %s: lost its lock while working, another run took it over; nothing of this run is committed: %w", cfg.Output, err)
+	var mu sync.Mutex // l is used by the renewal and by lockCheck
+	var lost error    // the ErrLockLost error, once the lock is lost
+	lostErr := func(err error) error {
+		return fmt.Errorf("output %s: lost its lock while working, another run took it over; nothing of this run is committed: %w", cfg.Output, err)
+	}
+	cfg.lockCheck = func() error {
+		mu.Lock()
+		defer mu.Unlock()
+		if lost == nil {
+			if err := l.Check(); errors.Is(err, arrowio.ErrLockLost) {
+				lost = err
+			} else if err != nil {
+				return err
+			}
+		}
+		if lost != nil {
+			return lostErr(lost)
 		}
 		return nil
 	}
@@ -55,15 +72,24 @@ func lockOutput(cfg *Config, log *runLog) (func(), error) {
 			case <-stop:
 				return
 			case <-t.C:
-				if err := l.Renew(cfg.Now()); err != nil {
-					// The run goes on; its manifest is still created
-					// only if absent, so a second run cannot commit over
-					// it.
-					log.warn("could not renew the output lock", "error", err.Error())
-					if errors.Is(err, arrowio.ErrLockLost) {
-						lost.Store(err)
-						return
+				mu.Lock()
+				err := l.Renew(cfg.Now())
+				if errors.Is(err, arrowio.ErrLockLost) {
+					lost = err
+				}
+				mu.Unlock()
+				if err == nil {
+					continue
+				}
+				log.warn("could not renew the output lock", "error", err.Error())
+				if errors.Is(err, arrowio.ErrLockLost) {
+					// Stop the run's work at once: another run owns the
+					// output now. Commit and prepareOutput check too.
+					if cfg.stop != nil {
+						cfg.stop(lostErr(err))
 					}
+					hookLockLost()
+					return
 				}
 			}
 		}
@@ -73,4 +99,13 @@ func lockOutput(cfg *Config, log *runLog) (func(), error) {
 		<-done
 		_ = l.Release()
 	}, nil
+}
+
+// checkLock fails when the output's lock, if this command holds one, has
+// been taken over.
+func (c *Config) checkLock() error {
+	if c.lockCheck == nil {
+		return nil
+	}
+	return c.lockCheck()
 }

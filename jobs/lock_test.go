@@ -75,18 +75,29 @@ func TestLockLostRunDoesNotCommit(t *testing.T) {
 	lake, out := filepath.Join(tmp, "lake"), filepath.Join(tmp, "out")
 	writeDemoLake(t, lake)
 	defer func(h func(string)) { hookFileWritten = h }(hookFileWritten)
+	defer func(h func()) { hookLockLost = h }(hookLockLost)
+	lostSeen := make(chan struct{})
+	hookLockLost = func() { close(lostSeen) }
 	var once sync.Once
 	hookFileWritten = func(string) {
 		once.Do(func() {
-			// Written again and again over several renewal ticks: a
+			// Written again and again until the renewal has seen it: a
 			// renewal that read the lock just before one write may
-			// overwrite it (Renew reads, then writes), but not all.
+			// overwrite it (Renew reads, then writes), but not every one.
 			other := `{"pid":1,"host":"elsewhere","started":"2026-01-02T03:04:05Z","expires":"2099-01-01T00:00:00Z"}` + "\n"
-			for range 50 {
+			deadline := time.After(10 * time.Second)
+			for {
 				if err := os.WriteFile(filepath.Join(out, lockName), []byte(other), 0o644); err != nil {
 					t.Error(err)
 				}
-				time.Sleep(time.Millisecond)
+				select {
+				case <-lostSeen:
+					return
+				case <-deadline:
+					t.Error("the renewal never saw the lock taken over")
+					return
+				case <-time.After(time.Millisecond):
+				}
 			}
 		})
 	}
@@ -99,5 +110,36 @@ func TestLockLostRunDoesNotCommit(t *testing.T) {
 	}
 	if got, _ := os.ReadFile(filepath.Join(out, lockName)); !strings.Contains(string(got), "elsewhere") {
 		t.Errorf("the new holder's lock was removed or changed: %q", got)
+	}
+}
+
+// Lock.Check, which guards the irreversible steps, sees a take-over at
+// once, without waiting for a renewal.
+func TestLockCheckSeesTakeOver(t *testing.T) {
+	defer func(d time.Duration) { lockRenewEvery = d }(lockRenewEvery)
+	lockRenewEvery = time.Hour
+	out := filepath.Join(t.TempDir(), "out")
+	cfg := Config{Output: out, Now: time.Now}
+	log, err := newRunLog(&cfg, "test")
+	if err != nil {
+		t.Fatal(err)
+	}
+	unlock, err := lockOutput(&cfg, log)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer unlock()
+	if err := cfg.checkLock(); err != nil {
+		t.Fatalf("own lock: %v", err)
+	}
+	other := `{"pid":1,"host":"elsewhere","started":"2026-01-02T03:04:05Z","expires":"2099-01-01T00:00:00Z"}` + "\n"
+	if err := os.WriteFile(filepath.Join(out, lockName), []byte(other), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	if err := cfg.checkLock(); !errors.Is(err, arrowio.ErrLockLost) {
+		t.Fatalf("after a take-over: %v, want ErrLockLost", err)
+	}
+	if err := prepareOutput(&cfg); !errors.Is(err, arrowio.ErrLockLost) {
+		t.Fatalf("prepareOutput after a take-over: %v, want ErrLockLost", err)
 	}
 }

@@ -31,6 +31,8 @@ const (
 // filter selects, taking unchanged files from the cache), then scaled
 // copies, then the manifest. It holds the output's lock throughout.
 func Run(ctx context.Context, cfg Config) (err error) {
+	ctx, cfg.stop = context.WithCancelCause(ctx)
+	defer cfg.stop(nil)
 	log, end, err := begin(&cfg, "run", true)
 	if err != nil {
 		return err
@@ -164,6 +166,8 @@ func Measure(ctx context.Context, cfg Config) (err error) {
 // statistics file; nothing is re-measured. Values outside the fitted
 // [min, max] are counted per column and raise a warning.
 func Apply(ctx context.Context, cfg Config) (err error) {
+	ctx, cfg.stop = context.WithCancelCause(ctx)
+	defer cfg.stop(nil)
 	log, end, err := begin(&cfg, "apply", true, cfg.ParamsPath, "--params")
 	if err != nil {
 		return err
@@ -406,6 +410,9 @@ func noteOwnedOutputs(cfg *Config) error {
 // prepareOutput checks the output tree (checkOutput), marks it
 // uncommitted and removes leftover temporary files.
 func prepareOutput(cfg *Config) error {
+	if err := cfg.checkLock(); err != nil {
+		return err
+	}
 	if err := checkOutput(cfg); err != nil {
 		return err
 	}
@@ -477,10 +484,8 @@ func (p *plan) commit(ctx context.Context, cfg *Config, m *manifests.Manifest, o
 	}
 	log.sum.Warnings = countWarnings(m.Columns)
 	manifestPath := arrowio.Join(cfg.Output, ManifestName)
-	if cfg.lockLost != nil {
-		if err := cfg.lockLost(); err != nil {
-			return err
-		}
+	if err := cfg.checkLock(); err != nil {
+		return err
 	}
 	if err := writeManifest(manifestPath, m, cfg.SkipCommitCheck); err != nil {
 		return err
