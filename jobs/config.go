@@ -77,6 +77,9 @@ type Config struct {
 	// another run (set by lockOutput); checked before prepareOutput
 	// removes anything and before the commit.
 	lockCheck func() error
+	// committingShards lets checkOutput accept a sharded apply's
+	// uncommitted output: commit is what finishes it.
+	committingShards bool
 	// stop, when set by a command, cancels its work with a cause; the
 	// lock renewal calls it when the lock is lost.
 	stop context.CancelCauseFunc

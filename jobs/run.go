@@ -371,11 +371,15 @@ func Version(version string) string {
 // an uncommitted earlier run, or (with Overwrite) a committed dataset.
 // The lock file and the statistics cache do not count.
 func checkOutput(cfg *Config) error {
-	state, _, err := outputState(cfg.Output)
+	state, _, sharded, err := outputStateMarker(cfg.Output)
 	if err != nil {
 		return err
 	}
 	switch {
+	case sharded && !cfg.committingShards:
+		// Its shards may still be writing: a run must not take their files
+		// over (nor abort their uploads).
+		return fmt.Errorf("%w: %s holds the uncommitted outputs of a sharded apply; finish it with lakescale commit, or remove them with lakescale clean first", ErrOutputNotEmpty, cfg.Output)
 	case state == outCommitted && !cfg.Overwrite:
 		return fmt.Errorf("%w: %s holds a committed dataset (%s); give --overwrite to replace it", ErrOutputNotEmpty, cfg.Output, ManifestName)
 	case state == outForeign:
@@ -425,12 +429,7 @@ func prepareOutput(cfg *Config) error {
 	// From here until commit the tree is uncommitted: first the marker,
 	// then drop the old manifest so the old dataset no longer claims to be
 	// complete.
-	marker := fmt.Sprintf("lakescale run started %s; this output is not committed until %s exists\n",
-		cfg.Now().UTC().Format(time.RFC3339), ManifestName)
-	if err := arrowio.WriteFileAtomic(arrowio.Join(cfg.Output, markerName), func(w io.Writer) error {
-		_, err := io.WriteString(w, marker)
-		return err
-	}); err != nil {
+	if err := writeMarker(cfg, markerRun, ManifestName+" exists"); err != nil {
 		return err
 	}
 	if err := arrowio.Remove(arrowio.Join(cfg.Output, ManifestName)); err != nil {

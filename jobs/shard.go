@@ -14,7 +14,6 @@ import (
 	"sort"
 	"strconv"
 	"strings"
-	"time"
 
 	"github.com/apache/arrow/go/v17/arrow"
 
@@ -403,37 +402,35 @@ func ApplyShard(ctx context.Context, cfg Config, sh Shard) (err error) {
 // write, and marks the folder uncommitted unless another shard (or an
 // earlier run) already did. Other shards' files are left alone.
 func openShardOutput(cfg *Config) error {
-	state, foreign, err := outputState(cfg.Output)
+	state, foreign, sharded, err := outputStateMarker(cfg.Output)
 	if err != nil {
 		return err
 	}
-	switch state {
-	case outCommitted:
+	switch {
+	case state == outCommitted:
 		return fmt.Errorf("%w: %s holds a committed dataset (%s); a sharded apply writes into a fresh output: give another --output", ErrOutputNotEmpty, cfg.Output, ManifestName)
-	case outForeign:
+	case state == outForeign:
 		return fmt.Errorf("%w: %s holds %s but no %s marker, so lakescale did not write it; want an absent or empty directory, or the output of this sharded apply", ErrOutputNotEmpty, cfg.Output, foreign, markerName)
-	case outUncommitted:
-		// Shards share the output with each other, not with a run or
-		// commit holding its lock.
-		lock := arrowio.Join(cfg.Output, lockName)
-		h, err := arrowio.HeldLock(lock, cfg.Now())
-		if err != nil {
-			return err
-		}
-		if h != nil {
-			return fmt.Errorf("%w: %s is locked by pid %d on host %s since %s (%s): a sharded apply does not write into an output that a run or commit is working on", ErrOutputNotEmpty, cfg.Output, h.PID, h.Host, h.Started, lock)
-		}
+	case state == outUncommitted && !sharded:
+		return fmt.Errorf("%w: %s holds the uncommitted files of a run, not of a sharded apply; remove them with lakescale clean first", ErrOutputNotEmpty, cfg.Output)
+	}
+	// Shards share the output with each other, not with a run or commit
+	// holding its lock (a run in pass one has not written its marker yet).
+	lock := arrowio.Join(cfg.Output, lockName)
+	h, err := arrowio.HeldLock(lock, cfg.Now())
+	if err != nil {
+		return err
+	}
+	if h != nil {
+		return fmt.Errorf("%w: %s is locked by pid %d on host %s since %s (%s): a sharded apply does not write into an output that a run or commit is working on", ErrOutputNotEmpty, cfg.Output, h.PID, h.Host, h.Started, lock)
+	}
+	if state == outUncommitted {
 		return nil
 	}
 	if err := arrowio.MkdirAll(cfg.Output); err != nil {
 		return err
 	}
-	marker := fmt.Sprintf("lakescale sharded apply started %s; this output is not committed until lakescale commit writes %s\n",
-		cfg.Now().UTC().Format(time.RFC3339), ManifestName)
-	return arrowio.WriteFileAtomic(arrowio.Join(cfg.Output, markerName), func(w io.Writer) error {
-		_, err := io.WriteString(w, marker)
-		return err
-	})
+	return writeMarker(cfg, markerSharded, "lakescale commit writes "+ManifestName)
 }
 
 // readPartials reads the results in dir (WORK/measure or WORK/apply) and
@@ -740,6 +737,7 @@ func CommitShards(ctx context.Context, cfg Config, work string) (err error) {
 	}
 	first := parts[0]
 	cfg.Input = first.Job.Settings.Input
+	cfg.committingShards = true
 	log, end, err := begin(&cfg, "commit", true)
 	if err != nil {
 		return err

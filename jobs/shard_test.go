@@ -391,9 +391,9 @@ func TestApplyShardOutputChecks(t *testing.T) {
 	if err := ApplyShard(context.Background(), f.applyConfig(t, out), Shard{Index: 0, Count: 2}); !errors.Is(err, ErrUsage) {
 		t.Fatalf("no work folder: %v, want ErrUsage", err)
 	}
-	// An uncommitted output that a run holds the lock of is not shared.
+	// An output that a run holds the lock of (in pass one: no marker yet)
+	// is not shared.
 	busy := filepath.Join(f.tmp, "busy")
-	writeText(t, filepath.Join(busy, markerName), "run started\n")
 	writeText(t, filepath.Join(busy, lockName), `{"pid":1,"host":"elsewhere","started":"2026-01-02T03:04:05Z","expires":"2099-01-01T00:00:00Z"}`+"\n")
 	err = ApplyShard(context.Background(), f.applyConfig(t, busy), Shard{Index: 0, Count: 2, Work: work})
 	if !errors.Is(err, ErrOutputNotEmpty) || !strings.Contains(err.Error(), "locked by pid 1 on host elsewhere") {
@@ -403,6 +403,18 @@ func TestApplyShardOutputChecks(t *testing.T) {
 	writeText(t, filepath.Join(busy, lockName), `{"pid":1,"host":"elsewhere","started":"2026-01-02T03:04:05Z","expires":"2026-01-01T00:00:00Z"}`+"\n")
 	if err := ApplyShard(context.Background(), f.applyConfig(t, busy), Shard{Index: 0, Count: 2, Work: work}); err != nil {
 		t.Fatalf("output with an expired lock: %v", err)
+	}
+	// A run does not take over a sharded apply's output (its shards may
+	// still be writing), and a shard does not join a run's.
+	rcfg := f.applyConfig(t, busy)
+	if err := Apply(context.Background(), rcfg); !errors.Is(err, ErrOutputNotEmpty) || !strings.Contains(err.Error(), "sharded apply") {
+		t.Fatalf("apply into a sharded apply's output: %v", err)
+	}
+	runs := filepath.Join(f.tmp, "runs")
+	writeText(t, filepath.Join(runs, markerName), markerRun+" 2026-01-02T03:04:05Z\n")
+	err = ApplyShard(context.Background(), f.applyConfig(t, runs), Shard{Index: 0, Count: 2, Work: work})
+	if !errors.Is(err, ErrOutputNotEmpty) || !strings.Contains(err.Error(), "of a run") {
+		t.Fatalf("shard into a run's uncommitted output: %v", err)
 	}
 	mcfg := f.measureConfig(t, "")
 	mcfg.StatsPath = filepath.Join(f.tmp, "x.json")
