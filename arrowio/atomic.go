@@ -3,6 +3,7 @@ package arrowio
 import (
 	"bufio"
 	"errors"
+	"fmt"
 	"io"
 	"io/fs"
 	"os"
@@ -75,10 +76,11 @@ func CreateFile(path string, write func(io.Writer) error) error {
 
 // CreateFileUnchecked is CreateFile on a store that may not carry out
 // create-only-if-absent writes (the user opted out of the start-up check):
-// where the conditional create fails for another reason than an existing
-// file (a store that rejects If-None-Match, a file system without hard
-// links), it checks that nothing exists at path and writes it with
-// WriteFileAtomic, which another writer could race.
+// it first checks that nothing exists at path (a store that ignores the
+// condition would otherwise replace what is there), then creates it
+// conditionally, and where the store cannot do that (ErrNoConditionalCreate:
+// a store that rejects If-None-Match, a file system without hard links)
+// writes it with WriteFileAtomic. Another writer could race the check.
 func CreateFileUnchecked(path string, write func(io.Writer) error) error {
 	st, key, err := Locate(path)
 	if err != nil {
@@ -96,16 +98,16 @@ func CreateFileUnchecked(path string, write func(io.Writer) error) error {
 // createUnchecked is Store.Write with ifAbsent, falling back as
 // CreateFileUnchecked describes; loc names the object in errors.
 func createUnchecked(st Store, key, loc string, write func(io.Writer) error) (int64, string, error) {
-	n, sum, err := st.Write(background, key, true, write)
-	if err == nil || errors.Is(err, fs.ErrExist) {
-		return n, sum, err
-	}
-	if _, serr := st.Stat(background, key); serr == nil {
+	if _, err := st.Stat(background, key); err == nil {
 		return 0, "", pathError("create", loc, fs.ErrExist)
-	} else if !errors.Is(serr, fs.ErrNotExist) {
-		return 0, "", serr
+	} else if !errors.Is(err, fs.ErrNotExist) {
+		return 0, "", err
 	}
-	return st.Write(background, key, false, write)
+	n, sum, err := st.Write(background, key, true, write)
+	if errors.Is(err, ErrNoConditionalCreate) {
+		return st.Write(background, key, false, write)
+	}
+	return n, sum, err
 }
 
 func writeFile(path string, ifAbsent bool, write func(io.Writer) error) error {
@@ -179,7 +181,11 @@ func writeAtomic(path string, ifAbsent bool, write func(io.Writer) error) (n int
 	}
 	if ifAbsent {
 		if err := link(tmp, path); err != nil {
-			return 0, "", pathError("create", path, bareErr(err))
+			err = bareErr(err)
+			if linkUnsupported(err) {
+				err = &classified{ErrNoConditionalCreate, fmt.Errorf("hard links not supported here: %w", err)}
+			}
+			return 0, "", pathError("create", path, err)
 		}
 		committed = true
 		// The name is linked; the temporary one is now only a second name.

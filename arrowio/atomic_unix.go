@@ -25,3 +25,10 @@ func fsyncDir(dir string) error {
 	}
 	return err
 }
+
+// linkUnsupported reports whether link(2) failed because the file system
+// cannot make hard links (EPERM on FAT and many FUSE mounts, ENOTSUP,
+// ENOSYS; POSIX link(2)), not because of the file.
+func linkUnsupported(err error) bool {
+	return errors.Is(err, syscall.EPERM) || errors.Is(err, syscall.ENOTSUP) || errors.Is(err, syscall.ENOSYS) || errors.Is(err, syscall.EOPNOTSUPP)
+}

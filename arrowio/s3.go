@@ -174,6 +174,9 @@ func (s *s3Bucket) pathErr(op, key string, err error) error {
 		code == "ConditionalRequestConflict"):
 		// Amazon S3 API reference: PutObject, If-None-Match.
 		err = fs.ErrExist
+	case op == "create" && (code == "NotImplemented" || status == http.StatusNotImplemented):
+		// A store that does not implement conditional writes.
+		err = &classified{ErrNoConditionalCreate, err}
 	}
 	return &fs.PathError{Op: op, Path: s.uri(key), Err: err}
 }

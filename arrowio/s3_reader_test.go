@@ -165,3 +165,38 @@ func TestS3Lock(t *testing.T) {
 		t.Fatalf("lock still there after release: %v %v", ok, err)
 	}
 }
+
+// --skip-commit-check on stores without conditional creates: one that
+// ignores If-None-Match fails the start-up probe, and the unchecked create
+// still refuses an existing object (it looks first); one that rejects it
+// (501) is told apart (ErrNoConditionalCreate) and written plainly.
+func TestS3UncheckedCreates(t *testing.T) {
+	_, fake := newTestS3(t)
+	SetS3Options(S3Options{Endpoint: fake.url, PathStyle: true, Region: "us-east-1"})
+	t.Cleanup(func() { SetS3Options(S3Options{}) })
+	write := func(s string) func(io.Writer) error {
+		return func(w io.Writer) error { _, err := io.WriteString(w, s); return err }
+	}
+	for _, mode := range []string{"ignores", "rejects"} {
+		t.Run(mode, func(t *testing.T) {
+			fake.ignoreConditions.Store(mode == "ignores")
+			fake.rejectConditions.Store(mode == "rejects")
+			defer fake.ignoreConditions.Store(false)
+			defer fake.rejectConditions.Store(false)
+			dir := "s3://" + testBucket + "/" + mode
+			if err := CheckConditionalCreate(dir); !errors.Is(err, ErrNoConditionalCreate) {
+				t.Fatalf("probe: %v, want ErrNoConditionalCreate", err)
+			}
+			loc := dir + "/_manifest.json"
+			if err := CreateFileUnchecked(loc, write("first")); err != nil {
+				t.Fatal(err)
+			}
+			if err := CreateFileUnchecked(loc, write("second")); !errors.Is(err, ErrExist) {
+				t.Fatalf("second unchecked create: %v, want ErrExist", err)
+			}
+			if b, err := ReadFile(loc); err != nil || string(b) != "first" {
+				t.Fatalf("object holds %q (%v), want %q", b, err, "first")
+			}
+		})
+	}
+}

@@ -47,6 +47,9 @@ type fakeS3 struct {
 	loseResponses atomic.Int64
 	// stallGets: ranged GETs get no answer until the client gives up.
 	stallGets atomic.Bool
+	// ignoreConditions strips If-None-Match, as a store that does not
+	// honour it would; rejectConditions answers it with 501.
+	ignoreConditions, rejectConditions atomic.Bool
 
 	creates atomic.Int64 // CreateMultipartUpload requests seen
 }
@@ -67,6 +70,15 @@ func (f *fakeS3) ServeHTTP(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	f.loseResponses.Store(0)
+	if r.Header.Get("If-None-Match") != "" && r.Method == http.MethodPut {
+		if f.rejectConditions.Load() {
+			s3ErrorResponse(w, http.StatusNotImplemented, "NotImplemented", "A header you provided implies functionality that is not implemented.")
+			return
+		}
+		if f.ignoreConditions.Load() {
+			r.Header.Del("If-None-Match")
+		}
+	}
 	if f.stallGets.Load() && r.Method == http.MethodGet && r.Header.Get("Range") != "" {
 		<-r.Context().Done()
 		return

@@ -18,8 +18,9 @@ var (
 )
 
 // commitCommands are the commands that commit a dataset and so check the
-// output's store at start-up.
-var commitCommands = []string{"run", "apply", "commit", "invert"}
+// output's store at start-up, and clean, which takes the output's lock
+// the same way.
+var commitCommands = []string{"run", "apply", "commit", "invert", "clean"}
 
 // addStorage gives every command except version the object-store flags,
 // applied before the command runs, the commit commands --skip-commit-check,
@@ -68,6 +69,7 @@ func cleanCommand() *cli.Command {
 			}
 			cfg.Version, cfg.Out, cfg.Log = version, c.App.Writer, c.App.ErrWriter
 			cfg.LogFormat = c.String(logFlag.Name)
+			cfg.SkipCommitCheck = c.Bool(skipCheckFlag.Name)
 			return jobs.Clean(c.Context, cfg)
 		},
 	}
