@@ -468,12 +468,14 @@ func (p *plan) commit(ctx context.Context, cfg *Config, m *manifests.Manifest, o
 	if err := context.Cause(ctx); err != nil {
 		return err
 	}
-	if existing, err := arrowio.Discover(cfg.Output); err == nil {
-		for _, f := range existing {
-			if !want[f.Rel] && (cfg.ownAll || cfg.owned[f.Rel]) {
-				if err := arrowio.Remove(f.Abs); err != nil {
-					return err
-				}
+	existing, err := arrowio.Discover(cfg.Output)
+	if err != nil && !errors.Is(err, arrowio.ErrNoInputs) {
+		return err // stale files could stay in the dataset unseen
+	}
+	for _, f := range existing {
+		if !want[f.Rel] && (cfg.ownAll || cfg.owned[f.Rel]) {
+			if err := arrowio.Remove(f.Abs); err != nil {
+				return err
 			}
 		}
 	}

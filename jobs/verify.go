@@ -2,6 +2,7 @@ package jobs
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"io"
 
@@ -67,11 +68,13 @@ func Verify(ctx context.Context, w io.Writer, dir string) error {
 			report("%s: embedded parameters differ from the manifest's", o.Path)
 		}
 	}
-	if files, err := arrowio.Discover(dir); err == nil {
-		for _, f := range files {
-			if !listed[f.Rel] {
-				report("%s: not listed in the manifest", f.Rel)
-			}
+	files, err := arrowio.Discover(dir)
+	if err != nil && !errors.Is(err, arrowio.ErrNoInputs) {
+		report("listing %s: %v", dir, err)
+	}
+	for _, f := range files {
+		if !listed[f.Rel] {
+			report("%s: not listed in the manifest", f.Rel)
 		}
 	}
 	if len(problems) > 0 {
