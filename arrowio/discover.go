@@ -63,6 +63,9 @@ func Discover(root string) ([]File, error) {
 		if !strings.HasSuffix(o.Key, ".parquet") || hiddenSegment(o.Key) {
 			continue
 		}
+		if !plainKey(o.Key) {
+			return nil, pathError("discover", root, fmt.Errorf("object key %q has an empty, \".\" or \"..\" segment and cannot be read as a location", o.Key))
+		}
 		part, err := ParsePartition(o.Key)
 		if err != nil {
 			var pe *fs.PathError

@@ -200,3 +200,16 @@ func TestS3UncheckedCreates(t *testing.T) {
 		})
 	}
 }
+
+// A listed key that Join would clean into another object's name is an
+// error, not a silent read of the wrong object.
+func TestS3DiscoverOddKey(t *testing.T) {
+	st, fake := newTestS3(t)
+	SetS3Options(S3Options{Endpoint: fake.url, PathStyle: true, Region: "us-east-1"})
+	t.Cleanup(func() { SetS3Options(S3Options{}) })
+	put(t, st, "odd/a//b.parquet", []byte("x"))
+	_, err := Discover("s3://" + testBucket + "/odd")
+	if err == nil || !strings.Contains(err.Error(), `"a//b.parquet"`) {
+		t.Fatalf("Discover: %v, want an error naming the key", err)
+	}
+}

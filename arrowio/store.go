@@ -146,12 +146,8 @@ func CheckLocation(loc string) error {
 		}
 		// Object keys are names, not paths: "a/../b" is a key of its own,
 		// which would escape the checks that compare cleaned locations.
-		if key = strings.TrimSuffix(key, "/"); key != "" {
-			for seg := range strings.SplitSeq(key, "/") {
-				if seg == "" || seg == "." || seg == ".." {
-					return fmt.Errorf("%s: %w: empty, \".\" or \"..\" segment in the key", loc, ErrBadLocation)
-				}
-			}
+		if key = strings.TrimSuffix(key, "/"); key != "" && !plainKey(key) {
+			return fmt.Errorf("%s: %w: empty, \".\" or \"..\" segment in the key", loc, ErrBadLocation)
 		}
 	case strings.HasPrefix(loc, schemeFile):
 		if p := strings.TrimPrefix(loc, schemeFile); !strings.HasPrefix(p, "/") {
@@ -185,7 +181,17 @@ func bucketStore(bucket string) (Store, error) {
 // s3:// and file:// locations, with the operating system's separator for
 // plain paths.
 func Join(loc string, elem ...string) string {
-	for _, scheme := range []string{schemeS3, schemeFile} {
+	if rest, ok := strings.CutPrefix(loc, schemeS3); ok {
+		// The bucket is the root: ".." stops there instead of naming
+		// another bucket.
+		bucket, key, _ := strings.Cut(rest, "/")
+		joined := strings.TrimPrefix(path.Join(append([]string{"/" + key}, elem...)...), "/")
+		if joined == "" {
+			return schemeS3 + bucket
+		}
+		return schemeS3 + bucket + "/" + joined
+	}
+	for _, scheme := range []string{schemeFile} {
 		if rest, ok := strings.CutPrefix(loc, scheme); ok {
 			parts := append([]string{rest}, elem...)
 			joined := path.Join(parts...)
@@ -249,3 +255,15 @@ func readAll(ctx context.Context, st Store, key string) ([]byte, error) {
 // HasScheme reports whether loc is a URI (file:// or s3://, or an
 // unsupported scheme that Locate will refuse) rather than a plain path.
 func HasScheme(loc string) bool { return strings.Contains(loc, "://") }
+
+// plainKey reports whether a slash-separated key has no empty, "." or
+// ".." segment, so that it names the same object before and after
+// Join's cleaning.
+func plainKey(key string) bool {
+	for seg := range strings.SplitSeq(key, "/") {
+		if seg == "" || seg == "." || seg == ".." {
+			return false
+		}
+	}
+	return true
+}

@@ -23,6 +23,8 @@ func TestJoinAndDir(t *testing.T) {
 		{Join("s3://b/p", "site=a/x.parquet"), "s3://b/p/site=a/x.parquet"},
 		{Join("s3://b/p/", "_manifest.json"), "s3://b/p/_manifest.json"},
 		{Join("s3://b"), "s3://b"},
+		{Join("s3://b/jobs", "../../other/in"), "s3://b/other/in"},
+		{Join("s3://b/x", ".."), "s3://b"},
 		{Join("file:///data/out", "x"), "file:///data/out/x"},
 		{Join("out", "site=a/x.parquet"), "out/site=a/x.parquet"},
 		{Dir("s3://b/p/job.toml"), "s3://b/p"},
