@@ -25,6 +25,10 @@ type LockHolder struct {
 	// PIDNamespace is the holder's PID namespace (Linux), so that a
 	// process is judged dead only from inside the namespace it ran in.
 	PIDNamespace string `json:"pid_ns,omitempty"`
+	// BootID identifies the running kernel (Linux), which the host name
+	// and namespace alone do not: two machines or containers can share
+	// a name, and namespace numbers repeat across boots and hosts.
+	BootID string `json:"boot_id,omitempty"`
 	// Token is random, so that two acquisitions never write the same
 	// bytes: a lock file holding this lock's bytes is this lock.
 	Token string `json:"token,omitempty"`
@@ -89,7 +93,7 @@ func AcquireLock(path string, now time.Time, unchecked bool) (*Lock, *LockHolder
 	if _, err := rand.Read(token[:]); err != nil {
 		return nil, nil, pathError("lock", path, err)
 	}
-	me := LockHolder{PID: os.Getpid(), Host: host, Started: now.UTC().Format(time.RFC3339), PIDNamespace: pidNamespace(), Token: hex.EncodeToString(token[:])}
+	me := LockHolder{PID: os.Getpid(), Host: host, Started: now.UTC().Format(time.RFC3339), PIDNamespace: pidNamespace(), BootID: bootID(), Token: hex.EncodeToString(token[:])}
 	content, err := me.encode(now)
 	if err != nil {
 		return nil, nil, pathError("lock", path, err)
@@ -135,9 +139,9 @@ func AcquireLock(path string, now time.Time, unchecked bool) (*Lock, *LockHolder
 		if err := json.Unmarshal(old, &h); err != nil || h.PID <= 0 || h.Host == "" {
 			return nil, nil, pathError("lock", path, fmt.Errorf("%w: unreadable lock file (%q); remove it if no lakescale run is writing here", ErrLocked, bytes.TrimSpace(old)))
 		}
-		// Only a process of this host and PID namespace can be checked
-		// (a lock file of an earlier version names no namespace).
-		sameNS := h.PIDNamespace == "" || h.PIDNamespace == me.PIDNamespace
+		// Only a process of this host, boot and PID namespace can be
+		// checked (lock files of earlier versions name neither).
+		sameNS := (h.PIDNamespace == "" || h.PIDNamespace == me.PIDNamespace) && (h.BootID == "" || h.BootID == me.BootID)
 		dead := h.Host == host && sameNS && !processAlive(h.PID)
 		if !dead && !h.expired(now) || attempt >= 3 {
 			until := ""

@@ -8,3 +8,6 @@ func processAlive(int) bool { return true }
 
 // pidNamespace is "" where PID namespaces cannot be read.
 func pidNamespace() string { return "" }
+
+// bootID is "" where the boot cannot be identified.
+func bootID() string { return "" }

@@ -259,4 +259,11 @@ func TestLockOtherPIDNamespace(t *testing.T) {
 	if _, _, err := AcquireLock(path, lockTime, false); !errors.Is(err, ErrLocked) {
 		t.Fatalf("lock of another PID namespace: %v, want ErrLocked", err)
 	}
+	// The same for another boot (another machine of the same name).
+	if bootID() != "" {
+		writeHolder(t, path, LockHolder{PID: deadPID(t), Host: host, Started: "2026-02-28T02:00:00Z", PIDNamespace: pidNamespace(), BootID: "another-boot", Expires: "2099-01-01T00:00:00Z"})
+		if _, _, err := AcquireLock(path, lockTime, false); !errors.Is(err, ErrLocked) {
+			t.Fatalf("lock of another boot: %v, want ErrLocked", err)
+		}
+	}
 }

@@ -5,6 +5,7 @@ package arrowio
 import (
 	"errors"
 	"os"
+	"strings"
 	"syscall"
 )
 
@@ -26,4 +27,14 @@ func pidNamespace() string {
 		return ""
 	}
 	return ns
+}
+
+// bootID is the Linux kernel's random boot id
+// (/proc/sys/kernel/random/boot_id; proc(5)), or "" elsewhere.
+func bootID() string {
+	b, err := os.ReadFile("/proc/sys/kernel/random/boot_id")
+	if err != nil {
+		return ""
+	}
+	return strings.TrimSpace(string(b))
 }
