@@ -39,7 +39,11 @@ func lockOutput(cfg *Config, log *runLog) (func(), error) {
 		return nil, err
 	}
 	if stale != nil {
-		_, _ = fmt.Fprintf(cfg.Out, "took over the stale lock of pid %d on host %s (started %s), which no longer runs\n", stale.PID, stale.Host, stale.Started)
+		why := "which no longer runs"
+		if stale.Expires != "" {
+			why += " or whose lease ended at " + stale.Expires
+		}
+		_, _ = fmt.Fprintf(cfg.Out, "took over the stale lock of pid %d on host %s (started %s), %s\n", stale.PID, stale.Host, stale.Started, why)
 		log.warn("took over a stale lock", "pid", stale.PID, "host", stale.Host, "started", stale.Started)
 	}
 	stop, done := make(chan struct{}), make(chan struct{})
