@@ -531,6 +531,10 @@ func readPartials[T any](dir, command string, decode func(io.Reader) (*T, error)
 			return nil, nil, fmt.Errorf("%w: %s: job settings (sha256 %.12s) differ from those of %s (sha256 %.12s); every shard must run the same job",
 				ErrShards, outPaths[i], h.Job.SHA256, outPaths[0], first.Job.SHA256)
 		}
+		if !sameTool(h.Tool, first.Tool) {
+			return nil, nil, fmt.Errorf("%w: %s was written by %s, %s by %s; run every shard with the same build",
+				ErrShards, outPaths[i], toolName(h.Tool), outPaths[0], toolName(first.Tool))
+		}
 		if h.Listing != first.Listing {
 			return nil, nil, fmt.Errorf("%w: %s saw an input listing of %d files, %d bytes (sha256 %.12s), %s one of %d files, %d bytes (sha256 %.12s); every shard must see the same input",
 				ErrShards, outPaths[i], h.Listing.Files, h.Listing.Bytes, h.Listing.SHA256, outPaths[0], first.Listing.Files, first.Listing.Bytes, first.Listing.SHA256)
@@ -640,6 +644,9 @@ func MergeShards(ctx context.Context, cfg Config, work string) (err error) {
 	parts, paths, err := readPartials(dir, "measure", manifests.DecodeMeasurePartial,
 		func(p *manifests.MeasurePartial) *manifests.PartialHeader { return &p.PartialHeader })
 	if err != nil {
+		return err
+	}
+	if err := cfg.sameBuild(parts[0].Tool, paths[0]); err != nil {
 		return err
 	}
 	first := parts[0]
@@ -800,6 +807,9 @@ func readApplyPartials(cfg *Config, work string) ([]*manifests.ApplyPartial, []s
 	if err != nil {
 		return nil, nil, err
 	}
+	if err := cfg.sameBuild(parts[0].Tool, paths[0]); err != nil {
+		return nil, nil, err
+	}
 	if got, want := parts[0].Job.Settings.Output, cfg.settings().Output; got != want {
 		return nil, nil, fmt.Errorf("%w: %s: the shards wrote into %s, not %s", ErrShards, paths[0], got, cfg.Output)
 	}
@@ -843,6 +853,30 @@ func checkShardOutputs(cfg *Config, paths []string, parts []*manifests.ApplyPart
 		sort.Strings(extra)
 		return fmt.Errorf("%w: %s holds %s, which no apply shard listed; remove what this run did not write, or apply into a fresh output",
 			ErrShards, cfg.Output, strings.Join(extra, ", "))
+	}
+	return nil
+}
+
+// sameTool reports whether two tool records name the same build.
+func sameTool(a, b manifests.Tool) bool {
+	return a.Name == b.Name && a.Version == b.Version && a.VCSRevision == b.VCSRevision && a.GoVersion == b.GoVersion
+}
+
+// toolName renders a tool record for messages.
+func toolName(t manifests.Tool) string {
+	s := t.Name + " " + t.Version
+	if t.VCSRevision != "" {
+		s += " (" + t.VCSRevision + ")"
+	}
+	return s + " " + t.GoVersion
+}
+
+// sameBuild checks that the shards (whose result at path recorded t) ran
+// the build that merges or commits them, which the statistics file or
+// manifest names as the tool.
+func (c *Config) sameBuild(t manifests.Tool, path string) error {
+	if me := toolInfo(c.Version); !sameTool(t, me) {
+		return fmt.Errorf("%w: %s was written by %s, this is %s; merge and commit with the build the shards ran", ErrShards, path, toolName(t), toolName(me))
 	}
 	return nil
 }

@@ -519,3 +519,37 @@ func TestAssignBalancedByBytes(t *testing.T) {
 		t.Fatalf("ties: %v, want a->0, b->1, c->0", got)
 	}
 }
+
+// Shards of different builds are not merged (a rolling upgrade in the
+// middle of an array), nor by another build than theirs.
+func TestMergeRefusesMixedBuilds(t *testing.T) {
+	f := newShardFixture(t, "")
+	work := filepath.Join(f.tmp, "work")
+	for i, v := range []string{"v1.0.0", "v1.0.1"} {
+		cfg := f.measureConfig(t, "")
+		cfg.Version = v
+		if err := MeasureShard(context.Background(), cfg, Shard{Index: i, Count: 2, Work: work}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	cfg := f.measureConfig(t, "")
+	cfg.Version = "v1.0.0"
+	cfg.StatsPath = filepath.Join(f.tmp, "merged.json")
+	err := MergeShards(context.Background(), cfg, work)
+	if !errors.Is(err, ErrShards) || !strings.Contains(err.Error(), "v1.0.1") || !strings.Contains(err.Error(), "same build") {
+		t.Fatalf("mixed builds: %v", err)
+	}
+	other := f.measureConfig(t, "")
+	other.Version = "v1.0.1"
+	if err := MeasureShard(context.Background(), other, Shard{Index: 0, Count: 2, Work: work}); err != nil {
+		t.Fatal(err)
+	}
+	err = MergeShards(context.Background(), cfg, work) // shards v1.0.1, merge v1.0.0
+	if !errors.Is(err, ErrShards) || !strings.Contains(err.Error(), "merge and commit with the build the shards ran") {
+		t.Fatalf("merge by another build: %v", err)
+	}
+	cfg.Version = "v1.0.1"
+	if err := MergeShards(context.Background(), cfg, work); err != nil {
+		t.Fatalf("same build: %v", err)
+	}
+}
