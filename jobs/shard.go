@@ -742,6 +742,9 @@ func CommitShards(ctx context.Context, cfg Config, work string) (err error) {
 	if err != nil {
 		return pre.done(err)
 	}
+	if done, err := committedAlready(&cfg, parts); done || err != nil {
+		return pre.done(err)
+	}
 	first := parts[0]
 	cfg.Input = first.Job.Settings.Input
 	cfg.committingShards = true
@@ -813,12 +816,6 @@ func readApplyPartials(cfg *Config, work string) ([]*manifests.ApplyPartial, []s
 	if got, want := parts[0].Job.Settings.Output, cfg.settings().Output; got != want {
 		return nil, nil, fmt.Errorf("%w: %s: the shards wrote into %s, not %s", ErrShards, paths[0], got, cfg.Output)
 	}
-	if ok, err := arrowio.Exists(arrowio.Join(cfg.Output, ManifestName)); err != nil || ok {
-		if err == nil {
-			err = fmt.Errorf("%w: %s is committed already (%s exists)", ErrOutputNotEmpty, cfg.Output, ManifestName)
-		}
-		return nil, nil, err
-	}
 	return parts, paths, nil
 }
 
@@ -879,4 +876,42 @@ func (c *Config) sameBuild(t manifests.Tool, path string) error {
 		return fmt.Errorf("%w: %s was written by %s, this is %s; merge and commit with the build the shards ran", ErrShards, path, toolName(t), toolName(me))
 	}
 	return nil
+}
+
+// committedAlready handles an output whose manifest exists. When it is the
+// manifest these shard lists commit (same job, parameters and outputs,
+// byte for byte by SHA-256), commit did its work before, perhaps in a pod
+// killed before it could report: done, without an error, so that a
+// scheduler's retry succeeds. Any other manifest is refused.
+func committedAlready(cfg *Config, parts []*manifests.ApplyPartial) (bool, error) {
+	path := arrowio.Join(cfg.Output, ManifestName)
+	ok, err := arrowio.Exists(path)
+	if err != nil || !ok {
+		return false, err
+	}
+	refuse := fmt.Errorf("%w: %s is committed already (%s exists) by another run than these shards'", ErrOutputNotEmpty, cfg.Output, ManifestName)
+	m, _, err := readManifest(path)
+	if err != nil {
+		return false, refuse
+	}
+	first := parts[0]
+	if m.Job.SHA256 != first.Job.SHA256 || m.ParamsSource == nil || *m.ParamsSource != first.ParamsSource {
+		return false, refuse
+	}
+	want := map[string]manifests.Output{}
+	for _, part := range parts {
+		for _, f := range part.Files {
+			want[f.Output.Path] = f.Output
+		}
+	}
+	if len(m.Outputs) != len(want) {
+		return false, refuse
+	}
+	for _, o := range m.Outputs {
+		if w, ok := want[o.Path]; !ok || w != o {
+			return false, refuse
+		}
+	}
+	fmt.Fprintf(cfg.Out, "already committed: %s lists exactly the outputs of these shards\n", path)
+	return true, nil
 }

@@ -155,12 +155,30 @@ func TestShardedMatchesSingleProcess(t *testing.T) {
 			t.Fatalf("%d shards: commit: %v", n, err)
 		}
 		f.sameDataset(t, out)
-		// A second commit of the same output fails.
-		if err := CommitShards(context.Background(), f.applyConfig(t, out), work); !errors.Is(err, ErrOutputNotEmpty) {
-			t.Fatalf("%d shards: second commit: %v, want ErrOutputNotEmpty", n, err)
+		// A second commit of the same shards (a retried commit pod) is
+		// done already and changes nothing; the manifest of another run
+		// is refused.
+		before, _ := os.ReadFile(filepath.Join(out, ManifestName))
+		if err := CommitShards(context.Background(), f.applyConfig(t, out), work); err != nil {
+			t.Fatalf("%d shards: second commit of the same shards: %v", n, err)
 		}
-		// So does a shard into the committed output.
-		err := ApplyShard(context.Background(), f.applyConfig(t, out), Shard{Index: 0, Count: n, Work: work})
+		if after, _ := os.ReadFile(filepath.Join(out, ManifestName)); !bytes.Equal(after, before) {
+			t.Fatalf("%d shards: the repeated commit rewrote the manifest", n)
+		}
+		m := readManifestT(t, filepath.Join(out, ManifestName))
+		m.Outputs[0].SHA256 = strings.Repeat("0", 64)
+		var buf bytes.Buffer
+		if err := manifests.Encode(&buf, m); err != nil {
+			t.Fatal(err)
+		}
+		writeText(t, filepath.Join(out, ManifestName), buf.String())
+		err := CommitShards(context.Background(), f.applyConfig(t, out), work)
+		if !errors.Is(err, ErrOutputNotEmpty) || !strings.Contains(err.Error(), "by another run") {
+			t.Fatalf("%d shards: commit over another manifest: %v, want a refusal", n, err)
+		}
+		writeText(t, filepath.Join(out, ManifestName), string(before))
+		// A shard into the committed output is refused.
+		err = ApplyShard(context.Background(), f.applyConfig(t, out), Shard{Index: 0, Count: n, Work: work})
 		if !errors.Is(err, ErrOutputNotEmpty) {
 			t.Fatalf("%d shards: a shard into a committed output: %v, want ErrOutputNotEmpty", n, err)
 		}
