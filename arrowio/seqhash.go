@@ -14,9 +14,13 @@ import (
 // SHA-256 must see the bytes in order. Bytes [0, next) are hashed. A read
 // that reaches past next hashes its new bytes; a read that starts past
 // next first hashes the gap [next, off), reading it in gapBufferSize
-// pieces; a read behind next changes nothing. Pass two's and pass one's
-// column-chunk reads go mostly forward through a file, so the gaps are
-// the columns not selected, read once. Sum hashes what is left. Reads
+// pieces; a read behind next changes nothing. Whole-chunk reads (remote
+// objects) go forward through a file, so there the gaps are only the
+// columns not selected and every byte is fetched once. Buffered reads
+// (local disk) take each column in 1 MiB pieces, in turn, so the first
+// piece of the next column makes the hash read ahead through the rest of
+// the current one; those bytes are read twice, the second time from the
+// page cache, as a separate hashing pass would. Sum hashes what is left. Reads
 // made before start (the footer, when the file is opened) are not
 // hashed here; Sum reads the footer's bytes again in order.
 type seqHasher struct {

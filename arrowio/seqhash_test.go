@@ -15,8 +15,10 @@ import (
 // the SHA-256 of the whole file (crypto/sha256 over os.ReadFile), whatever
 // columns and row groups were read, with buffered or whole-chunk reads.
 func TestReaderChecksum(t *testing.T) {
+	// Column chunks of several MiB (beyond the 1 MiB stream buffer) in
+	// three row groups, so that buffered reads interleave columns.
 	path := tempPath(t, "x.parquet")
-	writeRows(t, memory.DefaultAllocator, path, mixedRows(5000), 700, WriteOptions{RowGroupRows: 1200})
+	writeRows(t, memory.DefaultAllocator, path, mixedRows(1200000), 100000, WriteOptions{RowGroupRows: 400000, Compression: None})
 	raw, err := os.ReadFile(path)
 	if err != nil {
 		t.Fatal(err)
@@ -30,10 +32,10 @@ func TestReaderChecksum(t *testing.T) {
 			rgs  []int
 		}{
 			"nothing":            {nil, nil},
-			"all columns":        {nil, []int{0, 1, 2, 3, 4}},
-			"one column":         {[]int{2}, []int{0, 1, 2, 3, 4}},
-			"last column":        {[]int{3}, []int{0, 2, 4}},
-			"backwards":          {[]int{0, 3}, []int{4, 3, 1}},
+			"all columns":        {nil, []int{0, 1, 2}},
+			"one column":         {[]int{2}, []int{0, 1, 2}},
+			"last column":        {[]int{3}, []int{0, 2}},
+			"backwards":          {[]int{0, 3}, []int{2, 1}},
 			"first row group":    {[]int{1}, []int{0}},
 			"two columns, twice": {[]int{1, 3}, []int{0, 1, 1, 0, 2}},
 		} {
@@ -46,7 +48,7 @@ func TestReaderChecksum(t *testing.T) {
 				}
 				defer r.Close()
 				for _, rg := range read.rgs {
-					rr, err := r.Records(context.Background(), rg, read.cols, 100)
+					rr, err := r.Records(context.Background(), rg, read.cols, 0)
 					if err != nil {
 						t.Fatal(err)
 					}
@@ -64,9 +66,10 @@ func TestReaderChecksum(t *testing.T) {
 				if size != int64(len(raw)) || sum != want {
 					t.Errorf("Checksum = %d %s; want %d %s", size, sum, len(raw), want)
 				}
-				// Reading every column of every row group leaves only the
-				// leading magic and the footer to read again.
-				if name == "all columns" && r.hasher.gaps > int64(len(raw))/10 {
+				// Reading every column of every row group in whole chunks
+				// leaves only the leading magic and the footer to read
+				// again.
+				if name == "all columns" && !buffered && r.hasher.gaps > int64(len(raw))/10 {
 					t.Errorf("read %d of %d bytes a second time to hash them", r.hasher.gaps, len(raw))
 				}
 			})
