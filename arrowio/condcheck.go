@@ -16,8 +16,8 @@ var ErrNoConditionalCreate = errors.New("the store does not refuse a second crea
 
 // CheckConditionalCreate checks that the store holding the folder loc
 // honours CreateFile: it creates a probe object ".create-check.tmp-<random>"
-// in loc (a temporary name, see IsTempName), creates it a second time, which must fail with fs.ErrExist, and
-// removes it. A store that accepts the second create gives an error
+// in loc (a temporary name, see IsTempName), creates it a second time,
+// which must fail with fs.ErrExist, and removes it. A store that accepts the second create gives an error
 // wrapping ErrNoConditionalCreate. On local disk it also finds file
 // systems without hard links, where CreateFile cannot work.
 func CheckConditionalCreate(loc string) (err error) {

@@ -62,21 +62,19 @@ type Lock struct {
 
 // AcquireLock takes the lock file at path, creating it (and its folder)
 // with a create-only-if-absent write (link(2) on local disk, If-None-Match
-// on S3) so that of two processes only one can succeed. The
-// file records this process's pid, host name and start time.
+// on S3) so that of two processes only one can succeed. The file records
+// this process's pid, host name, boot id, PID namespace, start time, a
+// random token and the end of its lease (now + LockLease).
 //
-// When path already exists and its holder is a process on this host that
-// no longer runs, or its lease expired before now (see LockLease), the
-// lock is stale: it is removed and taken, and the old holder is returned.
-// A holder on another host with a lease still running cannot be checked
-// and so is not taken over. Any other existing lock gives an error wrapping
-// ErrLocked that names the holder; it is returned at once, without
-// waiting. Two processes that find the same stale lock at the same moment
-// could in principle both take it: the take-over re-reads the file just
-// before removing it, which narrows but does not close that window.
-//
-// The lock file is created with a create-if-absent write (Store.Write),
-// so on an object store it is taken with If-None-Match like a manifest.
+// When path already exists and its holder is a process of this host, boot
+// and PID namespace that no longer runs, or its lease ended before now,
+// the lock is stale: it is removed and taken, and the old holder is
+// returned. Any other holder, whose process cannot be checked from here
+// and whose lease still runs, is not taken over: the error wraps ErrLocked
+// and names the holder; it is returned at once, without waiting. Two
+// processes that find the same stale lock at the same moment could in
+// principle both take it: the take-over re-reads the file just before
+// removing it, which narrows but does not close that window.
 //
 // With unchecked the lock file is created as CreateFileUnchecked creates
 // files, for stores that cannot carry out create-only-if-absent writes.

@@ -42,7 +42,10 @@ type Store interface {
 	// of what was stored. With ifAbsent the object is created only if key
 	// does not exist; otherwise Write fails with an error wrapping
 	// fs.ErrExist and the existing object is left as it was. On any error
-	// nothing new is left at key.
+	// nothing new is left at key (on local disk, a folder that cannot be
+	// synced after the rename also loses the old file; see
+	// WriteFileAtomic). A store that cannot create conditionally at all
+	// says so with an error wrapping ErrNoConditionalCreate.
 	Write(ctx context.Context, key string, ifAbsent bool, write func(io.Writer) error) (n int64, sum string, err error)
 
 	// Delete removes the object at key; a missing object is not an error.

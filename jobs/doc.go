@@ -11,9 +11,10 @@
 //
 // Concurrency: each exported function runs one job to completion and is
 // safe to call from one goroutine at a time per output directory (run,
-// apply and invert hold the output's lock file, so a second caller fails
-// at once rather than interleaving; the shards of a sharded apply take no
-// lock, as they share their output by design, and commit takes it).
+// apply, invert, commit and clean hold the output's lock file, so a second
+// caller fails at once rather than interleaving; the shards of a sharded
+// apply take no lock, as they share their output by design, but refuse an
+// output whose lock is held).
 // Inside,
 // one errgroup sized by Config.Workers processes files; every task writes
 // only its own slot of a pre-sized results slice.

@@ -457,8 +457,8 @@ func (p *plan) commit(ctx context.Context, cfg *Config, m *manifests.Manifest, o
 		if n != outs[i].In.Rows {
 			return fmt.Errorf("check %s: %d rows, want %d", dst, n, outs[i].In.Rows)
 		}
-		if meta[p.metaKey()] != params {
-			return fmt.Errorf("check %s: the parameters in its footer (%s) are not the ones being committed; run the shard or job that writes it again", dst, p.metaKey())
+		if got := meta[p.metaKey()]; got != params {
+			return fmt.Errorf("check %s: the parameters in its footer (%s = %.80q) are not the ones being committed (%.80q); run the shard or job that writes it again", dst, p.metaKey(), got, params)
 		}
 		want[f.Rel] = true
 		rows += n
