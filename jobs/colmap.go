@@ -127,3 +127,8 @@ func addOutside(cols []manifests.Column, outs []written) {
 // fitted on (apply, or run with a fit filter). It is a warning, not an
 // error: the values are scaled with the same parameters all the same.
 const WarnOutsideFittedRange = "outside_fitted_range"
+
+// paramsOf is the scaling a manifest column records.
+func paramsOf(c manifests.Column) stats.Params {
+	return stats.Params{Method: stats.Method(c.Method), Center: float64(c.Params.Center), Scale: float64(c.Params.Scale)}
+}

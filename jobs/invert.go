@@ -56,7 +56,7 @@ func Invert(ctx context.Context, cfg Config, columns []string) (err error) {
 	}
 	params := make([]stats.Params, len(sel))
 	for j, c := range sel {
-		params[j] = stats.Params{Method: stats.Method(c.Method), Center: float64(c.Params.Center), Scale: float64(c.Params.Scale)}
+		params[j] = paramsOf(c)
 	}
 	m := cfg.newManifest(manifests.KindInverted, sel)
 	m.Job.Settings.Rules = src.Job.Settings.Rules
@@ -196,7 +196,7 @@ func InvertValues(r io.Reader, w io.Writer, paramsPath, column string) error {
 		}
 		return fmt.Errorf("%w: %w: column %q is not in %s (have %s)", ErrUsage, ErrColumn, column, paramsPath, strings.Join(names, ", "))
 	}
-	p := stats.Params{Method: stats.Method(c.Method), Center: float64(c.Params.Center), Scale: float64(c.Params.Scale)}
+	p := paramsOf(*c)
 	if err := p.Validate(); err != nil {
 		return fmt.Errorf("%s: column %s: %w", paramsPath, column, err)
 	}

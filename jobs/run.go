@@ -212,7 +212,7 @@ func applyPlan(cfg *Config) (*plan, []stats.Params, *manifests.Manifest, error) 
 		return nil, nil, nil, err
 	}
 	for j, c := range src.Columns {
-		params[j] = stats.Params{Method: stats.Method(c.Method), Center: float64(c.Params.Center), Scale: float64(c.Params.Scale)}
+		params[j] = paramsOf(c)
 	}
 	m := cfg.newManifest(manifests.KindDataset, src.Columns)
 	m.Job.Settings.Rules = src.Job.Settings.Rules
