@@ -33,12 +33,9 @@ var (
 func tempPattern(name string) string { return "." + name + ".tmp-*" }
 
 // IsTempName reports whether a base name is one of the temporary names
-// this package writes (and RemoveTemps removes): a file being written, or
-// a start-up probe (CheckConditionalCreate).
-func IsTempName(name string) bool { return isTempName(name) }
-
-// isTempName reports whether a base name is one tempPattern produces.
-func isTempName(name string) bool {
+// this package writes (and RemoveTemps removes): a file being written
+// (tempPattern), or a start-up probe (CheckConditionalCreate).
+func IsTempName(name string) bool {
 	ok, _ := filepath.Match(".?*.tmp-*", name)
 	return ok
 }

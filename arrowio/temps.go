@@ -39,7 +39,7 @@ func RemoveTemps(loc string) (int, error) {
 		if err != nil {
 			return err
 		}
-		if !d.Type().IsRegular() || !isTempName(d.Name()) {
+		if !d.Type().IsRegular() || !IsTempName(d.Name()) {
 			return nil
 		}
 		if err := os.Remove(p); err != nil && !errors.Is(err, fs.ErrNotExist) {
@@ -105,7 +105,7 @@ func removeRemoteTemps(st Store, root string) (int, error) {
 	}
 	n := 0
 	for _, o := range objs {
-		if isTempName(path.Base(o.Key)) {
+		if IsTempName(path.Base(o.Key)) {
 			key := o.Key
 			if root != "" {
 				key = root + "/" + o.Key
