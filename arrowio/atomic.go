@@ -77,7 +77,8 @@ func CreateFile(path string, write func(io.Writer) error) error {
 // condition would otherwise replace what is there), then creates it
 // conditionally, and where the store cannot do that (ErrNoConditionalCreate:
 // a store that rejects If-None-Match, a file system without hard links)
-// writes it with WriteFileAtomic. Another writer could race the check.
+// writes it with WriteFileAtomic, calling write a second time. Another
+// writer could race the check.
 func CreateFileUnchecked(path string, write func(io.Writer) error) error {
 	st, key, err := Locate(path)
 	if err != nil {

@@ -9,9 +9,10 @@ import (
 	"io/fs"
 )
 
-// ErrNoConditionalCreate marks a store that replaced an existing object on
-// a create-only-if-absent write, so that CreateFile cannot keep two
-// commits apart there.
+// ErrNoConditionalCreate marks a store that cannot carry out
+// create-only-if-absent writes: one that replaced an existing object on
+// such a write, rejects the condition (HTTP 501), or (a local file system)
+// cannot make hard links. CreateFile cannot keep two commits apart there.
 var ErrNoConditionalCreate = errors.New("the store does not refuse a second create of the same object (create-only-if-absent writes are not honoured)")
 
 // CheckConditionalCreate checks that the store holding the folder loc

@@ -63,8 +63,10 @@ func Discover(root string) ([]File, error) {
 		if !strings.HasSuffix(o.Key, ".parquet") || hiddenSegment(o.Key) {
 			continue
 		}
+		// Segments "." and ".." start with '.' and were skipped as hidden;
+		// an empty one ("a//b") would be cleaned into another key.
 		if !plainKey(o.Key) {
-			return nil, pathError("discover", root, fmt.Errorf("object key %q has an empty, \".\" or \"..\" segment and cannot be read as a location", o.Key))
+			return nil, pathError("discover", root, fmt.Errorf("object key %q has an empty segment and cannot be read as a location", o.Key))
 		}
 		part, err := ParsePartition(o.Key)
 		if err != nil {

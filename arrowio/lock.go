@@ -57,6 +57,7 @@ type Lock struct {
 	path    string
 	holder  LockHolder
 	content []byte
+	expires time.Time // the lease end content records
 	created string // topmost folder AcquireLock created for the lock, or ""
 }
 
@@ -121,7 +122,7 @@ func AcquireLock(path string, now time.Time, unchecked bool) (*Lock, *LockHolder
 			_, _, err = st.Write(background, key, true, write)
 		}
 		if err == nil {
-			return &Lock{st: st, key: key, path: path, holder: me, content: content, created: created}, stale, nil
+			return &Lock{st: st, key: key, path: path, holder: me, content: content, expires: now.Add(LockLease), created: created}, stale, nil
 		}
 		if !errors.Is(err, fs.ErrExist) {
 			return nil, nil, pathError("lock", path, unwrapPath(err))
@@ -182,6 +183,9 @@ func (l *Lock) Renew(now time.Time) error {
 	if l == nil || l.content == nil {
 		return nil
 	}
+	if err := l.leaseRuns(now, "renew lock"); err != nil {
+		return err
+	}
 	cur, err := readAll(background, l.st, l.key)
 	if err != nil && !errors.Is(err, fs.ErrNotExist) {
 		return pathError("renew lock", l.path, unwrapPath(err))
@@ -200,21 +204,39 @@ func (l *Lock) Renew(now time.Time) error {
 		// The write may have been stored although it reported an error
 		// (a lost response); then the lock holds the new content.
 		if cur, rerr := readAll(background, l.st, l.key); rerr == nil && bytes.Equal(cur, content) {
-			l.content = content
+			l.content, l.expires = content, now.Add(LockLease)
 			return nil
 		}
 		return err
 	}
-	l.content = content
+	l.content, l.expires = content, now.Add(LockLease)
 	return nil
 }
 
-// Check re-reads the lock file and fails with ErrLockLost when it no
-// longer holds this lock. Callers check just before an irreversible step
-// (removing a manifest, committing one).
-func (l *Lock) Check() error {
+// lockMargin is how long before its recorded end a lease counts as over
+// for its holder, so that a holder stops before anyone else could take
+// the lock over, with room for clocks that disagree a little.
+const lockMargin = LockLease / 10
+
+// leaseRuns fails with ErrLockLost once the lease this lock last wrote is
+// (nearly) over at now: another run may take it over from then on.
+func (l *Lock) leaseRuns(now time.Time, op string) error {
+	if !now.Before(l.expires.Add(-lockMargin)) {
+		return pathError(op, l.path, fmt.Errorf("%w: its lease ended at %s without a renewal", ErrLockLost, l.expires.UTC().Format(time.RFC3339)))
+	}
+	return nil
+}
+
+// Check fails with ErrLockLost when the lock file no longer holds this
+// lock, or when this lock's lease is (nearly) over at now, so that it may
+// be taken over at any moment. Callers check just before an irreversible
+// step (removing files, committing).
+func (l *Lock) Check(now time.Time) error {
 	if l == nil || l.content == nil {
 		return nil
+	}
+	if err := l.leaseRuns(now, "check lock"); err != nil {
+		return err
 	}
 	cur, err := readAll(background, l.st, l.key)
 	if err != nil && !errors.Is(err, fs.ErrNotExist) {

@@ -267,3 +267,28 @@ func TestLockOtherPIDNamespace(t *testing.T) {
 		}
 	}
 }
+
+// A lock whose lease was not renewed in time counts as lost for its own
+// holder too, before anyone else may take it over.
+func TestLockOwnLeaseRunsOut(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "_lock")
+	l, _, err := AcquireLock(path, lockTime, false)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer func() { _ = l.Release() }()
+	if err := l.Check(lockTime.Add(LockLease / 2)); err != nil {
+		t.Fatalf("check within the lease: %v", err)
+	}
+	late := lockTime.Add(LockLease - lockMargin)
+	if err := l.Check(late); !errors.Is(err, ErrLockLost) {
+		t.Fatalf("check at the lease's end: %v, want ErrLockLost", err)
+	}
+	if err := l.Renew(late); !errors.Is(err, ErrLockLost) {
+		t.Fatalf("renew after the lease: %v, want ErrLockLost", err)
+	}
+	// The file is still this lock's: the lease, not the file, ran out.
+	if err := l.Check(lockTime.Add(time.Minute)); err != nil {
+		t.Fatalf("check with an earlier clock: %v", err)
+	}
+}

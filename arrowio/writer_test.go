@@ -189,8 +189,8 @@ func TestCheckConditionalCreateRefusesLinklessFS(t *testing.T) {
 	defer func(old func(string, string) error) { link = old }(link)
 	link = func(string, string) error { return &os.LinkError{Op: "link", Err: syscall.EPERM} }
 	dir := t.TempDir()
-	if err := CheckConditionalCreate(dir); err == nil || !strings.Contains(err.Error(), dir) {
-		t.Fatalf("err = %v; want a failure naming %s", err, dir)
+	if err := CheckConditionalCreate(dir); !errors.Is(err, ErrNoConditionalCreate) || !strings.Contains(err.Error(), dir) {
+		t.Fatalf("err = %v; want ErrNoConditionalCreate naming %s", err, dir)
 	}
 	if names, _, _ := ListDir(dir); len(names) != 0 {
 		t.Errorf("left behind: %v", names)

@@ -35,6 +35,8 @@ func Clean(ctx context.Context, cfg Config) (err error) {
 		}
 		return err
 	}
+	ctx, cfg.stop = context.WithCancelCause(ctx)
+	defer cfg.stop(nil)
 	log, err := newRunLog(&cfg, "clean")
 	if err != nil {
 		return err
@@ -53,6 +55,9 @@ func Clean(ctx context.Context, cfg Config) (err error) {
 	if state == outForeign {
 		return fmt.Errorf("%w: %s holds %s and neither %s nor %s, so lakescale did not write it; nothing removed", ErrOutputNotEmpty, cfg.Output, foreign, ManifestName, markerName)
 	}
+	if err := cfg.checkLock(); err != nil {
+		return err
+	}
 	temps, err := arrowio.RemoveTemps(cfg.Output)
 	if err != nil {
 		return err
@@ -61,6 +66,9 @@ func Clean(ctx context.Context, cfg Config) (err error) {
 	if state == outUncommitted {
 		files, err := arrowio.Discover(cfg.Output)
 		if err != nil && !errors.Is(err, arrowio.ErrNoInputs) {
+			return err
+		}
+		if err := cfg.checkLock(); err != nil {
 			return err
 		}
 		for _, f := range files {

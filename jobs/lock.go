@@ -35,6 +35,9 @@ func lockOutput(cfg *Config, log *runLog) (func(), error) {
 	if errors.Is(err, arrowio.ErrLocked) {
 		return nil, fmt.Errorf("output %s is in use by another run (a dead run's lock is taken over when its lease ends; remove %s sooner only if that run is dead): %w", cfg.Output, path, err)
 	}
+	if errors.Is(err, arrowio.ErrNoConditionalCreate) {
+		return nil, fmt.Errorf("%w%s", err, skipCheckHint)
+	}
 	if err != nil {
 		return nil, err
 	}
@@ -56,7 +59,7 @@ func lockOutput(cfg *Config, log *runLog) (func(), error) {
 		mu.Lock()
 		defer mu.Unlock()
 		if lost == nil {
-			if err := l.Check(); errors.Is(err, arrowio.ErrLockLost) {
+			if err := l.Check(cfg.Now()); errors.Is(err, arrowio.ErrLockLost) {
 				lost = err
 			} else if err != nil {
 				return err

@@ -101,6 +101,12 @@ func begin(cfg *Config, command string, writes bool, required ...string) (log *r
 	return log, end, nil
 }
 
+// skipCheckHint follows every failure of a create-only-if-absent write
+// that the store cannot carry out.
+const skipCheckHint = "; the output lock and the commit need create-only-if-absent writes (If-None-Match on S3, hard links on " +
+	"local disk) so that two runs cannot both commit: use a store or file system that has them, or give --skip-commit-check " +
+	"if only one run at a time writes this output"
+
 // checkCommitSupport makes sure the output's store refuses a second
 // create of the same object, on which the commit relies (writeManifest),
 // unless the user opted out.
@@ -108,12 +114,8 @@ func checkCommitSupport(cfg *Config) error {
 	if cfg.SkipCommitCheck {
 		return nil
 	}
-	err := arrowio.CheckConditionalCreate(cfg.Output)
-	switch {
-	case errors.Is(err, arrowio.ErrNoConditionalCreate):
-		return fmt.Errorf("%w; two runs could then both commit %s: use a store that honours If-None-Match, or give --skip-commit-check if only one run at a time writes there", err, cfg.Output)
-	case err != nil:
-		return fmt.Errorf("%w (the commit needs create-only-if-absent writes; --skip-commit-check runs without them if only one run at a time writes there)", err)
+	if err := arrowio.CheckConditionalCreate(cfg.Output); err != nil {
+		return fmt.Errorf("%w%s", err, skipCheckHint)
 	}
 	return nil
 }
@@ -466,6 +468,10 @@ func (p *plan) commit(ctx context.Context, cfg *Config, m *manifests.Manifest, o
 		m.Outputs = append(m.Outputs, manifests.Output{Path: f.Rel, Rows: outs[i].Out.Rows, Bytes: outs[i].Out.Bytes, SHA256: outs[i].Out.SHA256})
 	}
 	if err := context.Cause(ctx); err != nil {
+		return err
+	}
+	// Nothing is removed once another run owns the output.
+	if err := cfg.checkLock(); err != nil {
 		return err
 	}
 	existing, err := arrowio.Discover(cfg.Output)

@@ -344,11 +344,6 @@ func ApplyShard(ctx context.Context, cfg Config, sh Shard) (err error) {
 	if err := cfg.checkPaths(true); err != nil {
 		return err
 	}
-	// Commit will need the store to refuse a second create; find out now,
-	// before the shards do all their work.
-	if err := checkCommitSupport(&cfg); err != nil {
-		return err
-	}
 	p, params, m, err := applyPlan(&cfg)
 	if err != nil {
 		return err
@@ -406,13 +401,11 @@ func openShardOutput(cfg *Config) error {
 	if err != nil {
 		return err
 	}
-	switch {
-	case state == outCommitted:
+	switch state {
+	case outCommitted:
 		return fmt.Errorf("%w: %s holds a committed dataset (%s); a sharded apply writes into a fresh output: give another --output", ErrOutputNotEmpty, cfg.Output, ManifestName)
-	case state == outForeign:
+	case outForeign:
 		return fmt.Errorf("%w: %s holds %s but no %s marker, so lakescale did not write it; want an absent or empty directory, or the output of this sharded apply", ErrOutputNotEmpty, cfg.Output, foreign, markerName)
-	case state == outUncommitted && !sharded:
-		return fmt.Errorf("%w: %s holds the uncommitted files of a run, not of a sharded apply; remove them with lakescale clean first", ErrOutputNotEmpty, cfg.Output)
 	}
 	// Shards share the output with each other, not with a run or commit
 	// holding its lock (a run in pass one has not written its marker yet).
@@ -422,7 +415,21 @@ func openShardOutput(cfg *Config) error {
 		return err
 	}
 	if h != nil {
-		return fmt.Errorf("%w: %s is locked by pid %d on host %s since %s (%s): a sharded apply does not write into an output that a run or commit is working on", ErrOutputNotEmpty, cfg.Output, h.PID, h.Host, h.Started, lock)
+		holder := "an unreadable lock file"
+		if h.PID != 0 {
+			holder = fmt.Sprintf("pid %d on host %s since %s", h.PID, h.Host, h.Started)
+		}
+		return fmt.Errorf("%w: %s is locked by %s (%s): a sharded apply does not write into an output that a run, commit or clean is working on; wait for it, or for its lease to end if it died",
+			ErrOutputNotEmpty, cfg.Output, holder, lock)
+	}
+	if state == outUncommitted && !sharded {
+		return fmt.Errorf("%w: %s holds the uncommitted files of a run that stopped, not of a sharded apply; remove them with lakescale clean first", ErrOutputNotEmpty, cfg.Output)
+	}
+	// Commit will need the store to refuse a second create; find out now,
+	// before the shards do all their work (and only once the output is
+	// known to be this sharded apply's to write).
+	if err := checkCommitSupport(cfg); err != nil {
+		return err
 	}
 	if state == outUncommitted {
 		return nil
@@ -748,6 +755,8 @@ func CommitShards(ctx context.Context, cfg Config, work string) (err error) {
 	first := parts[0]
 	cfg.Input = first.Job.Settings.Input
 	cfg.committingShards = true
+	ctx, cfg.stop = context.WithCancelCause(ctx)
+	defer cfg.stop(nil)
 	log, end, err := begin(&cfg, "commit", true)
 	if err != nil {
 		return err
@@ -790,6 +799,9 @@ func CommitShards(ctx context.Context, cfg Config, work string) (err error) {
 		log.sum.BytesWritten += f.Output.Bytes
 	}
 	if err := checkShardOutputs(&cfg, paths, parts, all); err != nil {
+		return err
+	}
+	if err := cfg.checkLock(); err != nil {
 		return err
 	}
 	if _, err := arrowio.RemoveTemps(cfg.Output); err != nil {
@@ -911,6 +923,10 @@ func committedAlready(cfg *Config, parts []*manifests.ApplyPartial) (bool, error
 		if w, ok := want[o.Path]; !ok || w != o {
 			return false, refuse
 		}
+	}
+	// A commit killed after its manifest left the marker; it goes now.
+	if err := arrowio.Remove(arrowio.Join(cfg.Output, markerName)); err != nil {
+		return false, err
 	}
 	fmt.Fprintf(cfg.Out, "already committed: %s lists exactly the outputs of these shards\n", path)
 	return true, nil
