@@ -159,8 +159,13 @@ func TestShardedMatchesSingleProcess(t *testing.T) {
 		// done already and changes nothing; the manifest of another run
 		// is refused.
 		before, _ := os.ReadFile(filepath.Join(out, ManifestName))
+		// As a commit killed between the manifest and the marker leaves it.
+		writeText(t, filepath.Join(out, markerName), markerSharded+"\n")
 		if err := CommitShards(context.Background(), f.applyConfig(t, out), work); err != nil {
 			t.Fatalf("%d shards: second commit of the same shards: %v", n, err)
+		}
+		if _, err := os.Stat(filepath.Join(out, markerName)); !os.IsNotExist(err) {
+			t.Fatalf("%d shards: the repeated commit left the marker: %v", n, err)
 		}
 		if after, _ := os.ReadFile(filepath.Join(out, ManifestName)); !bytes.Equal(after, before) {
 			t.Fatalf("%d shards: the repeated commit rewrote the manifest", n)
