@@ -58,7 +58,7 @@ type Lock struct {
 	holder  LockHolder
 	content []byte
 	expires time.Time // the lease end content records
-	created string // topmost folder AcquireLock created for the lock, or ""
+	created string    // topmost folder AcquireLock created for the lock, or ""
 }
 
 // AcquireLock takes the lock file at path, creating it (and its folder)
