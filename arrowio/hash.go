@@ -1,6 +1,7 @@
 package arrowio
 
 import (
+	"context"
 	"crypto/sha256"
 	"encoding/hex"
 	"hash"
@@ -10,11 +11,16 @@ import (
 // HashFile returns the size and SHA-256 (lowercase hex) of a file, reading
 // it as a stream.
 func HashFile(loc string) (size int64, sum string, err error) {
+	return HashFileContext(background, loc)
+}
+
+// HashFileContext is HashFile whose reads stop when ctx is done.
+func HashFileContext(ctx context.Context, loc string) (size int64, sum string, err error) {
 	st, key, err := Locate(loc)
 	if err != nil {
 		return 0, "", err
 	}
-	obj, err := st.Open(background, key)
+	obj, err := st.Open(ctx, key)
 	if err != nil {
 		return 0, "", err
 	}

@@ -40,7 +40,10 @@ func Verify(ctx context.Context, w io.Writer, dir string) error {
 		}
 		listed[o.Path] = true
 		path := arrowio.Join(dir, o.Path)
-		size, sum, err := arrowio.HashFile(path)
+		size, sum, err := arrowio.HashFileContext(ctx, path)
+		if cerr := context.Cause(ctx); cerr != nil {
+			return cerr
+		}
 		if err != nil {
 			report("%s: %v", o.Path, err)
 			continue
