@@ -14,7 +14,8 @@ func HashFile(loc string) (size int64, sum string, err error) {
 	return HashFileContext(background, loc)
 }
 
-// HashFileContext is HashFile whose reads stop when ctx is done.
+// HashFileContext is HashFile whose reads from an object store stop when
+// ctx is done; a local file is read to its end.
 func HashFileContext(ctx context.Context, loc string) (size int64, sum string, err error) {
 	st, key, err := Locate(loc)
 	if err != nil {

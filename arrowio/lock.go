@@ -46,9 +46,10 @@ type LockHolder struct {
 // agree to well within the lease.
 const LockLease = 10 * time.Minute
 
-// ErrLockLost is returned by Renew when the lock file no longer holds
-// this lock (it expired and another run took it over).
-var ErrLockLost = errors.New("lock lost: another run took it over")
+// ErrLockLost is returned by Renew and Check when the lock file no longer
+// holds this lock (another run took it over), or when this lock's lease
+// ran out without a renewal, after which another run may take it.
+var ErrLockLost = errors.New("lock lost")
 
 // Lock is a held lock file; Release gives it up.
 type Lock struct {
@@ -122,7 +123,7 @@ func AcquireLock(path string, now time.Time, unchecked bool) (*Lock, *LockHolder
 			_, _, err = st.Write(background, key, true, write)
 		}
 		if err == nil {
-			return &Lock{st: st, key: key, path: path, holder: me, content: content, expires: now.Add(LockLease), created: created}, stale, nil
+			return &Lock{st: st, key: key, path: path, holder: me, content: content, expires: wall(now).Add(LockLease), created: created}, stale, nil
 		}
 		if !errors.Is(err, fs.ErrExist) {
 			return nil, nil, pathError("lock", path, unwrapPath(err))
@@ -204,14 +205,19 @@ func (l *Lock) Renew(now time.Time) error {
 		// The write may have been stored although it reported an error
 		// (a lost response); then the lock holds the new content.
 		if cur, rerr := readAll(background, l.st, l.key); rerr == nil && bytes.Equal(cur, content) {
-			l.content, l.expires = content, now.Add(LockLease)
+			l.content, l.expires = content, wall(now).Add(LockLease)
 			return nil
 		}
 		return err
 	}
-	l.content, l.expires = content, now.Add(LockLease)
+	l.content, l.expires = content, wall(now).Add(LockLease)
 	return nil
 }
+
+// wall drops the monotonic clock reading from t: leases are compared on
+// the wall clock, as other hosts compare them, and the monotonic clock
+// stops while a machine is suspended.
+func wall(t time.Time) time.Time { return t.Round(0) }
 
 // lockMargin is how long before its recorded end a lease counts as over
 // for its holder, so that a holder stops before anyone else could take
@@ -221,7 +227,7 @@ const lockMargin = LockLease / 10
 // leaseRuns fails with ErrLockLost once the lease this lock last wrote is
 // (nearly) over at now: another run may take it over from then on.
 func (l *Lock) leaseRuns(now time.Time, op string) error {
-	if !now.Before(l.expires.Add(-lockMargin)) {
+	if !wall(now).Before(l.expires.Add(-lockMargin)) {
 		return pathError(op, l.path, fmt.Errorf("%w: its lease ended at %s without a renewal", ErrLockLost, l.expires.UTC().Format(time.RFC3339)))
 	}
 	return nil

@@ -152,6 +152,11 @@ func TestS3Lock(t *testing.T) {
 	if err := l.Renew(later); !errors.Is(err, ErrLockLost) {
 		t.Fatalf("renew after take-over: %v, want ErrLockLost", err)
 	}
+	// Within its own lease the old holder still sees that the object is
+	// no longer its lock.
+	if err := l.Check(lockTime.Add(2 * time.Minute)); !errors.Is(err, ErrLockLost) || strings.Contains(err.Error(), "lease ended") {
+		t.Fatalf("check of a lock object rewritten by another run: %v, want ErrLockLost for its content", err)
+	}
 	if err := l.Release(); err != nil {
 		t.Fatal(err)
 	}

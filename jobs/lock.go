@@ -53,7 +53,7 @@ func lockOutput(cfg *Config, log *runLog) (func(), error) {
 	var mu sync.Mutex // l is used by the renewal and by lockCheck
 	var lost error    // the ErrLockLost error, once the lock is lost
 	lostErr := func(err error) error {
-		return fmt.Errorf("output %s: lost its lock while working, another run took it over; nothing of this run is committed: %w", cfg.Output, err)
+		return fmt.Errorf("output %s: lost its lock while working (another run took it over, or its lease ran out without a renewal); nothing of this run is committed: %w", cfg.Output, err)
 	}
 	cfg.lockCheck = func() error {
 		mu.Lock()

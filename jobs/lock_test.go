@@ -8,6 +8,7 @@ import (
 	"path/filepath"
 	"strings"
 	"sync"
+	"sync/atomic"
 	"testing"
 	"time"
 
@@ -141,5 +142,47 @@ func TestLockCheckSeesTakeOver(t *testing.T) {
 	}
 	if err := prepareOutput(&cfg); !errors.Is(err, arrowio.ErrLockLost) {
 		t.Fatalf("prepareOutput after a take-over: %v, want ErrLockLost", err)
+	}
+}
+
+// A run whose lease runs out without a renewal (the machine was
+// suspended, say: here its clock jumps 20 minutes) stops and commits
+// nothing, although no other run has taken the lock yet.
+func TestLockLeaseLapsedRunStops(t *testing.T) {
+	defer func(d time.Duration) { lockRenewEvery = d }(lockRenewEvery)
+	lockRenewEvery = 2 * time.Millisecond
+	tmp := t.TempDir()
+	lake, out := filepath.Join(tmp, "lake"), filepath.Join(tmp, "out")
+	writeDemoLake(t, lake)
+	cfg := testConfig(t, lake, out, 1)
+	base := cfg.Now()
+	var jumped atomic.Bool
+	cfg.Now = func() time.Time {
+		if jumped.Load() {
+			return base.Add(20 * time.Minute)
+		}
+		return base
+	}
+	defer func(h func(string)) { hookFileWritten = h }(hookFileWritten)
+	defer func(h func()) { hookLockLost = h }(hookLockLost)
+	lostSeen := make(chan struct{})
+	hookLockLost = func() { close(lostSeen) }
+	var once sync.Once
+	hookFileWritten = func(string) {
+		once.Do(func() {
+			jumped.Store(true)
+			select {
+			case <-lostSeen:
+			case <-time.After(10 * time.Second):
+				t.Error("the renewal never saw the lease run out")
+			}
+		})
+	}
+	err := Run(context.Background(), cfg)
+	if !errors.Is(err, arrowio.ErrLockLost) || !strings.Contains(err.Error(), "lease ended") {
+		t.Fatalf("run whose lease ran out: %v; want ErrLockLost for the lease", err)
+	}
+	if _, err := os.Stat(filepath.Join(out, ManifestName)); !os.IsNotExist(err) {
+		t.Fatalf("manifest committed after the lease ran out: %v", err)
 	}
 }

@@ -114,10 +114,11 @@ func checkCommitSupport(cfg *Config) error {
 	if cfg.SkipCommitCheck {
 		return nil
 	}
-	if err := arrowio.CheckConditionalCreate(cfg.Output); err != nil {
+	err := arrowio.CheckConditionalCreate(cfg.Output)
+	if errors.Is(err, arrowio.ErrNoConditionalCreate) {
 		return fmt.Errorf("%w%s", err, skipCheckHint)
 	}
-	return nil
+	return err
 }
 
 // measureAll is pass one of run and measure: discovery, the fit slice and
@@ -479,6 +480,9 @@ func (p *plan) commit(ctx context.Context, cfg *Config, m *manifests.Manifest, o
 		return err // stale files could stay in the dataset unseen
 	}
 	for _, f := range existing {
+		if err := context.Cause(ctx); err != nil {
+			return err
+		}
 		if !want[f.Rel] && (cfg.ownAll || cfg.owned[f.Rel]) {
 			if err := arrowio.Remove(f.Abs); err != nil {
 				return err

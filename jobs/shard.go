@@ -924,9 +924,14 @@ func committedAlready(cfg *Config, parts []*manifests.ApplyPartial) (bool, error
 			return false, refuse
 		}
 	}
-	// A commit killed after its manifest left the marker; it goes now.
-	if err := arrowio.Remove(arrowio.Join(cfg.Output, markerName)); err != nil {
-		return false, err
+	// A commit killed after its manifest left the sharded marker; it goes
+	// now. (A run's marker beside the manifest belongs to a run replacing
+	// the dataset, and stays.)
+	marker := arrowio.Join(cfg.Output, markerName)
+	if b, err := arrowio.ReadFile(marker); err == nil && bytes.HasPrefix(b, []byte(markerSharded)) {
+		if err := arrowio.Remove(marker); err != nil {
+			return false, err
+		}
 	}
 	fmt.Fprintf(cfg.Out, "already committed: %s lists exactly the outputs of these shards\n", path)
 	return true, nil
