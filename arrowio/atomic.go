@@ -58,7 +58,7 @@ const writeBufferSize = 256 << 10
 // point does not find it, and the old one is gone too. Errors from write
 // are returned annotated with "write path".
 func WriteFileAtomic(path string, write func(io.Writer) error) error {
-	return writeFile(path, false, write)
+	return writeFile(path, modeReplace, write)
 }
 
 // CreateFile is WriteFileAtomic that succeeds only if nothing exists at
@@ -68,7 +68,7 @@ func WriteFileAtomic(path string, write func(io.Writer) error) error {
 // to path (link(2) fails when path exists); on S3 the upload carries
 // If-None-Match: *.
 func CreateFile(path string, write func(io.Writer) error) error {
-	return writeFile(path, true, write)
+	return writeFile(path, modeCreate, write)
 }
 
 // CreateFileUnchecked is CreateFile on a store that may not carry out
@@ -80,17 +80,7 @@ func CreateFile(path string, write func(io.Writer) error) error {
 // writes it with WriteFileAtomic, calling write a second time. Another
 // writer could race the check.
 func CreateFileUnchecked(path string, write func(io.Writer) error) error {
-	st, key, err := Locate(path)
-	if err != nil {
-		return err
-	}
-	_, _, err = createUnchecked(st, key, path, func(w io.Writer) error {
-		if err := write(w); err != nil {
-			return pathError("write", path, err)
-		}
-		return nil
-	})
-	return err
+	return writeFile(path, modeCreateUnchecked, write)
 }
 
 // createUnchecked is Store.Write with ifAbsent, falling back as
@@ -108,17 +98,32 @@ func createUnchecked(st Store, key, loc string, write func(io.Writer) error) (in
 	return n, sum, err
 }
 
-func writeFile(path string, ifAbsent bool, write func(io.Writer) error) error {
+// How writeFile writes: replacing, creating only if absent, or creating
+// as CreateFileUnchecked does.
+type writeMode int
+
+const (
+	modeReplace writeMode = iota
+	modeCreate
+	modeCreateUnchecked
+)
+
+func writeFile(path string, mode writeMode, write func(io.Writer) error) error {
 	st, key, err := Locate(path)
 	if err != nil {
 		return err
 	}
-	_, _, err = st.Write(background, key, ifAbsent, func(w io.Writer) error {
+	named := func(w io.Writer) error {
 		if err := write(w); err != nil {
 			return pathError("write", path, err)
 		}
 		return nil
-	})
+	}
+	if mode == modeCreateUnchecked {
+		_, _, err = createUnchecked(st, key, path, named)
+	} else {
+		_, _, err = st.Write(background, key, mode == modeCreate, named)
+	}
 	return err
 }
 

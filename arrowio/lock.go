@@ -184,15 +184,8 @@ func (l *Lock) Renew(now time.Time) error {
 	if l == nil || l.content == nil {
 		return nil
 	}
-	if err := l.leaseRuns(now, "renew lock"); err != nil {
+	if err := l.verify(now, "renew lock"); err != nil {
 		return err
-	}
-	cur, err := readAll(background, l.st, l.key)
-	if err != nil && !errors.Is(err, fs.ErrNotExist) {
-		return pathError("renew lock", l.path, unwrapPath(err))
-	}
-	if err != nil || !bytes.Equal(cur, l.content) {
-		return pathError("renew lock", l.path, ErrLockLost)
 	}
 	content, err := l.holder.encode(now)
 	if err != nil {
@@ -241,15 +234,21 @@ func (l *Lock) Check(now time.Time) error {
 	if l == nil || l.content == nil {
 		return nil
 	}
-	if err := l.leaseRuns(now, "check lock"); err != nil {
+	return l.verify(now, "check lock")
+}
+
+// verify fails with ErrLockLost, errors reading "op path: ...", when the
+// lease is (nearly) over at now or the lock file no longer holds l.
+func (l *Lock) verify(now time.Time, op string) error {
+	if err := l.leaseRuns(now, op); err != nil {
 		return err
 	}
 	cur, err := readAll(background, l.st, l.key)
 	if err != nil && !errors.Is(err, fs.ErrNotExist) {
-		return pathError("check lock", l.path, unwrapPath(err))
+		return pathError(op, l.path, unwrapPath(err))
 	}
 	if err != nil || !bytes.Equal(cur, l.content) {
-		return pathError("check lock", l.path, ErrLockLost)
+		return pathError(op, l.path, ErrLockLost)
 	}
 	return nil
 }

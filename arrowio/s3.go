@@ -338,21 +338,8 @@ func (s *s3Bucket) create(ctx context.Context, key string, write func(io.Writer)
 
 // holds reports whether the object at key exists and holds exactly b.
 func (s *s3Bucket) holds(ctx context.Context, key string, b []byte) bool {
-	obj, err := s.Open(ctx, key)
-	if err != nil {
-		return false
-	}
-	defer func() { _ = obj.Close() }() // read-only
-	if obj.Size() != int64(len(b)) {
-		return false
-	}
-	got := make([]byte, len(b))
-	if len(b) > 0 {
-		if _, err := obj.ReadAt(got, 0); err != nil {
-			return false
-		}
-	}
-	return bytes.Equal(got, b)
+	got, err := readAll(ctx, s, key)
+	return err == nil && bytes.Equal(got, b)
 }
 
 // abortUploads aborts the incomplete multipart uploads below the folder dir

@@ -3,12 +3,9 @@ package jobs
 import (
 	"bufio"
 	"context"
-	"crypto/sha256"
-	"encoding/hex"
 	"fmt"
 	"io"
 	"path"
-	"path/filepath"
 	"strconv"
 	"strings"
 
@@ -59,26 +56,12 @@ func Invert(ctx context.Context, cfg Config, columns []string) (err error) {
 		params[j] = paramsOf(c)
 	}
 	m := cfg.newManifest(manifests.KindInverted, sel)
-	m.Job.Settings.Rules = src.Job.Settings.Rules
-	m.Job.Settings.Std = src.Job.Settings.Std
-	m.Job.Settings.Fit = src.Job.Settings.Fit
-	m.Job.SHA256 = m.Job.Settings.Digest()
-	sum := sha256.Sum256(raw)
-	m.ParamsSource = &manifests.ParamsSource{Path: filepath.ToSlash(cfg.ParamsPath), Kind: src.Kind, SHA256: hex.EncodeToString(sum[:])}
+	cfg.inheritParams(m, src, raw)
 	if err := p.checkEmbedded(ctx, &cfg, m.FileParams()); err != nil {
 		return err
 	}
 	log.phase("discover", "files", len(files), "columns", len(sel))
-	if err := prepareOutput(&cfg); err != nil {
-		return err
-	}
-	outs, err := passTwo(ctx, &cfg, p, params, fileMeta(m), true)
-	if err != nil {
-		return err
-	}
-	log.passTwo(outs)
-	log.inputsOf(outs)
-	return p.commit(ctx, &cfg, m, outs, log)
+	return p.writeAndCommit(ctx, &cfg, params, m, log)
 }
 
 // invertColumns picks the parameter columns the patterns name (all when

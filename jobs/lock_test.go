@@ -15,6 +15,10 @@ import (
 	"github.com/lakescale/lakescale/arrowio"
 )
 
+// foreignLock is a lock file of another host's live run, its lease
+// running far beyond any test clock.
+const foreignLock = `{"pid":1,"host":"elsewhere","started":"2026-01-02T03:04:05Z","expires":"2099-01-01T00:00:00Z"}` + "\n"
+
 // While a command holds the output's lock, its lease is renewed in the
 // background; unlocking stops the renewal and removes the lock.
 func TestLockLeaseRenewed(t *testing.T) {
@@ -85,7 +89,7 @@ func TestLockLostRunDoesNotCommit(t *testing.T) {
 			// Written again and again until the renewal has seen it: a
 			// renewal that read the lock just before one write may
 			// overwrite it (Renew reads, then writes), but not every one.
-			other := `{"pid":1,"host":"elsewhere","started":"2026-01-02T03:04:05Z","expires":"2099-01-01T00:00:00Z"}` + "\n"
+			other := foreignLock
 			deadline := time.After(10 * time.Second)
 			for {
 				if err := os.WriteFile(filepath.Join(out, lockName), []byte(other), 0o644); err != nil {
@@ -133,7 +137,7 @@ func TestLockCheckSeesTakeOver(t *testing.T) {
 	if err := cfg.checkLock(); err != nil {
 		t.Fatalf("own lock: %v", err)
 	}
-	other := `{"pid":1,"host":"elsewhere","started":"2026-01-02T03:04:05Z","expires":"2099-01-01T00:00:00Z"}` + "\n"
+	other := foreignLock
 	if err := os.WriteFile(filepath.Join(out, lockName), []byte(other), 0o644); err != nil {
 		t.Fatal(err)
 	}

@@ -1,7 +1,6 @@
 package jobs
 
 import (
-	"bytes"
 	"context"
 	"crypto/sha256"
 	"encoding/hex"
@@ -180,16 +179,7 @@ func Apply(ctx context.Context, cfg Config) (err error) {
 	if err != nil {
 		return err
 	}
-	if err := prepareOutput(&cfg); err != nil {
-		return err
-	}
-	outs, err := passTwo(ctx, &cfg, p, params, fileMeta(m), true)
-	if err != nil {
-		return err
-	}
-	log.passTwo(outs)
-	log.inputsOf(outs)
-	return p.commit(ctx, &cfg, m, outs, log)
+	return p.writeAndCommit(ctx, &cfg, params, m, log)
 }
 
 // applyPlan reads apply's parameters document and discovers the inputs:
@@ -197,13 +187,9 @@ func Apply(ctx context.Context, cfg Config) (err error) {
 // values outside of), the parameters, and the manifest started with the
 // parameters' columns, rules and source.
 func applyPlan(cfg *Config) (*plan, []stats.Params, *manifests.Manifest, error) {
-	raw, err := arrowio.ReadFile(cfg.ParamsPath)
+	src, raw, err := readManifest(cfg.ParamsPath)
 	if err != nil {
 		return nil, nil, nil, err
-	}
-	src, err := manifests.Decode(bytes.NewReader(raw))
-	if err != nil {
-		return nil, nil, nil, fmt.Errorf("%s: %w", cfg.ParamsPath, err)
 	}
 	files, err := arrowio.Discover(cfg.Input)
 	if err != nil {
@@ -218,13 +204,37 @@ func applyPlan(cfg *Config) (*plan, []stats.Params, *manifests.Manifest, error) 
 		params[j] = paramsOf(c)
 	}
 	m := cfg.newManifest(manifests.KindDataset, src.Columns)
+	cfg.inheritParams(m, src, raw)
+	return p, params, m, nil
+}
+
+// inheritParams records in m where its parameters came from: the rules,
+// std and fit filter they were fitted with (part of the job's digest) and
+// the path, kind and SHA-256 of the document raw read from
+// cfg.ParamsPath.
+func (c *Config) inheritParams(m, src *manifests.Manifest, raw []byte) {
 	m.Job.Settings.Rules = src.Job.Settings.Rules
 	m.Job.Settings.Std = src.Job.Settings.Std
 	m.Job.Settings.Fit = src.Job.Settings.Fit
 	m.Job.SHA256 = m.Job.Settings.Digest()
 	sum := sha256.Sum256(raw)
-	m.ParamsSource = &manifests.ParamsSource{Path: filepath.ToSlash(cfg.ParamsPath), Kind: src.Kind, SHA256: hex.EncodeToString(sum[:])}
-	return p, params, m, nil
+	m.ParamsSource = &manifests.ParamsSource{Path: filepath.ToSlash(c.ParamsPath), Kind: src.Kind, SHA256: hex.EncodeToString(sum[:])}
+}
+
+// writeAndCommit is pass two of apply and invert with the parameters
+// given: the output prepared, every file written (inputs hashed on the
+// way), the manifest m committed.
+func (p *plan) writeAndCommit(ctx context.Context, cfg *Config, params []stats.Params, m *manifests.Manifest, log *runLog) error {
+	if err := prepareOutput(cfg); err != nil {
+		return err
+	}
+	outs, err := passTwo(ctx, cfg, p, params, fileMeta(m), true)
+	if err != nil {
+		return err
+	}
+	log.passTwo(outs)
+	log.inputsOf(outs)
+	return p.commit(ctx, cfg, m, outs, log)
 }
 
 // columnsFrom selects the columns a parameters document names, checking

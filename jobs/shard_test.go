@@ -417,7 +417,7 @@ func TestApplyShardOutputChecks(t *testing.T) {
 	// An output that a run holds the lock of (in pass one: no marker yet)
 	// is not shared.
 	busy := filepath.Join(f.tmp, "busy")
-	writeText(t, filepath.Join(busy, lockName), `{"pid":1,"host":"elsewhere","started":"2026-01-02T03:04:05Z","expires":"2099-01-01T00:00:00Z"}`+"\n")
+	writeText(t, filepath.Join(busy, lockName), foreignLock)
 	err = ApplyShard(context.Background(), f.applyConfig(t, busy), Shard{Index: 0, Count: 2, Work: work})
 	if !errors.Is(err, ErrOutputNotEmpty) || !strings.Contains(err.Error(), "locked by pid 1 on host elsewhere") {
 		t.Fatalf("locked output: %v", err)
