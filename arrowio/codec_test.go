@@ -2,7 +2,9 @@ package arrowio
 
 import (
 	"bytes"
+	"encoding/binary"
 	"fmt"
+	"math"
 	"math/rand/v2"
 	"os"
 	"sync"
@@ -110,5 +112,85 @@ func TestReuseZstdFileMatchesStock(t *testing.T) {
 			t.Fatalf("%s: %d rows", p, n)
 		}
 		checkMixed(t, cols, rows)
+	}
+}
+
+// TestRawFrame: appendRawFrame writes the frame RFC 8878 (section 3.1.1)
+// describes: magic 0xFD2FB528, a descriptor with Single_Segment_Flag and a
+// 4-byte Frame_Content_Size, then Raw_Blocks of at most 128 KiB, the last
+// one flagged. github.com/klauspost/compress/zstd and Arrow's codec must
+// decode it back to the input, at every block boundary.
+func TestRawFrame(t *testing.T) {
+	dec, err := zstd.NewReader(nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer dec.Close()
+	rng := rand.New(rand.NewPCG(5, 6))
+	for _, n := range []int{0, 1, 1000, 128<<10 - 1, 128 << 10, 128<<10 + 1, 3 << 20, 3<<20 + 7} {
+		src := make([]byte, n)
+		for i := range src {
+			src[i] = byte(rng.Uint32())
+		}
+		frame := appendRawFrame([]byte("prefix"), src)[len("prefix"):]
+		blocks := max(1, (n+128<<10-1)/(128<<10))
+		if want := 4 + 1 + 4 + 3*blocks + n; len(frame) != want {
+			t.Fatalf("%d bytes: frame of %d bytes, want %d", n, len(frame), want)
+		}
+		if !bytes.Equal(frame[:5], []byte{0x28, 0xB5, 0x2F, 0xFD, 0xA0}) {
+			t.Fatalf("%d bytes: header % x", n, frame[:5])
+		}
+		got, err := dec.DecodeAll(frame, nil)
+		if err != nil || !bytes.Equal(got, src) {
+			t.Fatalf("%d bytes: klauspost decoder: %v, equal %v", n, err, bytes.Equal(got, src))
+		}
+		got = stockZstd.Decode(make([]byte, n), frame)
+		if !bytes.Equal(got, src) {
+			t.Fatalf("%d bytes: Arrow's codec decodes something else", n)
+		}
+	}
+}
+
+// TestEncodePageRawOnlyWhenIncompressible: a page of random bytes (as full
+// precision floats are) is stored raw, costing only the frame and block
+// headers; a compressible page of the same size is compressed as before
+// (equal to Arrow's codec output); small pages are never probed. All decode.
+func TestEncodePageRawOnlyWhenIncompressible(t *testing.T) {
+	dec, err := zstd.NewReader(nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer dec.Close()
+	rng := rand.New(rand.NewPCG(7, 8))
+	random := make([]byte, 1<<20)
+	for i := range random {
+		random[i] = byte(rng.Uint32())
+	}
+	quantised := make([]byte, 0, 1<<20) // few distinct float64 values
+	for len(quantised) < 1<<20 {
+		quantised = binary.LittleEndian.AppendUint64(quantised, math.Float64bits(float64(rng.IntN(50))/10))
+	}
+	codec := reuseZstd{stockZstd}
+	for _, c := range []struct {
+		name string
+		src  []byte
+		raw  bool
+	}{
+		{"random", random, true},
+		{"quantised", quantised, false},
+		{"small random", random[:minProbedPage-1], false},
+	} {
+		got := codec.EncodeLevel(nil, c.src, 1)
+		plain, err := dec.DecodeAll(got, nil)
+		if err != nil || !bytes.Equal(plain, c.src) {
+			t.Fatalf("%s: round trip: %v", c.name, err)
+		}
+		isRaw := len(got) >= len(c.src) && bytes.Equal(got, appendRawFrame(nil, c.src))
+		if isRaw != c.raw {
+			t.Errorf("%s: stored raw = %v (%d of %d bytes), want %v", c.name, isRaw, len(got), len(c.src), c.raw)
+		}
+		if !c.raw && !bytes.Equal(got, stockZstd.EncodeLevel(nil, c.src, 1)) {
+			t.Errorf("%s: compressed page differs from Arrow's codec output", c.name)
+		}
 	}
 }
