@@ -48,6 +48,7 @@ type Reader struct {
 	schema *arrow.Schema
 	meta   map[string]string
 	footer string
+	scan   scanBuffers
 }
 
 // Open opens a Parquet file (a path or location) and reads its footer.

@@ -19,12 +19,7 @@ func TestReaderChecksum(t *testing.T) {
 	// three row groups, so that buffered reads interleave columns.
 	path := tempPath(t, "x.parquet")
 	writeRows(t, memory.DefaultAllocator, path, mixedRows(1200000), 100000, WriteOptions{RowGroupRows: 400000, Compression: None})
-	raw, err := os.ReadFile(path)
-	if err != nil {
-		t.Fatal(err)
-	}
-	s := sha256.Sum256(raw)
-	want := hex.EncodeToString(s[:])
+	raw, want := fileSHA256(t, path)
 
 	for _, buffered := range []bool{true, false} {
 		for name, read := range map[string]struct {
@@ -40,13 +35,7 @@ func TestReaderChecksum(t *testing.T) {
 			"two columns, twice": {[]int{1, 3}, []int{0, 1, 1, 0, 2}},
 		} {
 			t.Run(fmt.Sprintf("%s/buffered=%v", name, buffered), func(t *testing.T) {
-				defer func(b bool) { bufferedStreams = b }(bufferedStreams)
-				bufferedStreams = buffered
-				r, err := Open(path, memory.DefaultAllocator)
-				if err != nil {
-					t.Fatal(err)
-				}
-				defer r.Close()
+				r := openStreams(t, path, buffered)
 				for _, rg := range read.rgs {
 					rr, err := r.Records(context.Background(), rg, read.cols, 0)
 					if err != nil {
@@ -75,4 +64,31 @@ func TestReaderChecksum(t *testing.T) {
 			})
 		}
 	}
+}
+
+// fileSHA256 returns a file's bytes and their SHA-256 (lowercase hex), by
+// crypto/sha256 over os.ReadFile.
+func fileSHA256(t *testing.T, path string) ([]byte, string) {
+	t.Helper()
+	raw, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	s := sha256.Sum256(raw)
+	return raw, hex.EncodeToString(s[:])
+}
+
+// openStreams opens path with buffered stream reads on or off (whole
+// chunks) until the test ends; the Reader is closed then too.
+func openStreams(t *testing.T, path string, buffered bool) *Reader {
+	t.Helper()
+	old := bufferedStreams
+	bufferedStreams = buffered
+	t.Cleanup(func() { bufferedStreams = old })
+	r, err := Open(path, memory.DefaultAllocator)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { r.Close() })
+	return r
 }

@@ -1,8 +1,10 @@
 package jobs
 
 import (
+	"cmp"
 	"context"
 	"fmt"
+	"slices"
 
 	"github.com/apache/arrow/go/v17/arrow/memory"
 	"golang.org/x/sync/errgroup"
@@ -107,8 +109,12 @@ func measureFile(ctx context.Context, cfg *Config, p *plan, i int) (fileResult, 
 	for j, c := range p.Columns {
 		accs[j] = stats.NewAccumulator(c.Kind)
 	}
+	add := addRowGroup
+	if scannable(r, idx) {
+		add = scanRowGroup
+	}
 	for rg := range r.NumRowGroups() {
-		if err := addRowGroup(ctx, cfg, r, rg, idx, accs); err != nil {
+		if err := add(ctx, cfg, r, rg, idx, accs); err != nil {
 			return fileResult{}, fmt.Errorf("%s: %w", f.Rel, err)
 		}
 		if cfg.InfPolicy == InfError {
@@ -129,8 +135,44 @@ func measureFile(ctx context.Context, cfg *Config, p *plan, i int) (fileResult, 
 	return res, nil
 }
 
+// scannable reports whether every column of idx can be read by
+// Reader.ScanColumn, the faster way (numeric columns always can).
+func scannable(r *arrowio.Reader, idx []int) bool {
+	for _, k := range idx {
+		if !r.CanScan(k) {
+			return false
+		}
+	}
+	return true
+}
+
+// scanRowGroup feeds one row group's columns into the accumulators, one
+// column after another, in file order (so that the input's hash follows
+// the reads), each in batches of dense values.
+func scanRowGroup(ctx context.Context, cfg *Config, r *arrowio.Reader, rg int, idx []int, accs []*stats.Accumulator) error {
+	order := make([]int, len(idx))
+	for j := range order {
+		order[j] = j
+	}
+	slices.SortFunc(order, func(a, b int) int { return cmp.Compare(idx[a], idx[b]) })
+	for _, j := range order {
+		a := accs[j]
+		err := r.ScanColumn(ctx, rg, idx[j], cfg.BatchRows, func(vals any, nulls int) error {
+			if err := a.AddValues(vals, nulls); err != nil {
+				return fmt.Errorf("column %s: %w", r.Schema().Field(idx[j]).Name, err)
+			}
+			return nil
+		})
+		if err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
 // addRowGroup feeds one row group's batches into the accumulators,
-// checking for cancellation between batches.
+// checking for cancellation between batches. It reads through Arrow
+// record batches, for columns ScanColumn cannot read.
 func addRowGroup(ctx context.Context, cfg *Config, r *arrowio.Reader, rg int, idx []int, accs []*stats.Accumulator) error {
 	rr, err := r.Records(ctx, rg, idx, cfg.BatchRows)
 	if err != nil {

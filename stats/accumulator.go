@@ -193,6 +193,57 @@ func (a *Accumulator) Add(arr arrow.Array) error {
 	return nil
 }
 
+// AddValues feeds a batch of rows given as its non-null values, densely
+// packed, and the count of nulls among them: the batch is len(vals) + nulls
+// rows. vals is a []float64 or []float32 (KindFloat), []int8 to []int64
+// (KindSigned) or []uint8 to []uint64 (KindUnsigned). It leaves the same
+// state as Add given the same rows as an Arrow array; Parquet readers hand
+// out values in this form, without the cost of building arrays.
+func (a *Accumulator) AddValues(vals any, nulls int) error {
+	switch v := vals.(type) {
+	case []float64:
+		return addDense(a, KindFloat, v, nulls, func(a *Accumulator, v []float64) { addFloats(a, v, nil, 0) })
+	case []float32:
+		return addDense(a, KindFloat, v, nulls, func(a *Accumulator, v []float32) { addFloats(a, v, nil, 0) })
+	case []int8:
+		return addDense(a, KindSigned, v, nulls, addSigned[int8])
+	case []int16:
+		return addDense(a, KindSigned, v, nulls, addSigned[int16])
+	case []int32:
+		return addDense(a, KindSigned, v, nulls, addSigned[int32])
+	case []int64:
+		return addDense(a, KindSigned, v, nulls, addSigned[int64])
+	case []uint8:
+		return addDense(a, KindUnsigned, v, nulls, addUnsigned[uint8])
+	case []uint16:
+		return addDense(a, KindUnsigned, v, nulls, addUnsigned[uint16])
+	case []uint32:
+		return addDense(a, KindUnsigned, v, nulls, addUnsigned[uint32])
+	case []uint64:
+		return addDense(a, KindUnsigned, v, nulls, addUnsigned[uint64])
+	}
+	return fmt.Errorf("add values of Go type %T: %w", vals, ErrUnsupportedType)
+}
+
+// addDense checks a batch for AddValues (kind k) and adds it with add.
+func addDense[T any](a *Accumulator, k Kind, vals []T, nulls int, add func(*Accumulator, []T)) error {
+	if k != a.kind {
+		return fmt.Errorf("add %T to %s accumulator: %w", vals, a.kind, ErrKindMismatch)
+	}
+	if nulls < 0 {
+		return fmt.Errorf("add %T: negative null count %d", vals, nulls)
+	}
+	rows, _ := a.rows()
+	if r, c := bits.Add64(rows, uint64(len(vals)), 0); c != 0 || r+uint64(nulls) < r {
+		return fmt.Errorf("add %T: %w", vals, ErrCountOverflow)
+	}
+	a.nulls += uint64(nulls)
+	if len(vals) > 0 {
+		add(a, vals)
+	}
+	return nil
+}
+
 // Merge adds b's state into a. Kinds must match. b is not modified; a and
 // b may be the same accumulator.
 func (a *Accumulator) Merge(b *Accumulator) error {

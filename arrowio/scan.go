@@ -1,0 +1,192 @@
+package arrowio
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"unsafe"
+
+	"github.com/apache/arrow/go/v17/arrow"
+	"github.com/apache/arrow/go/v17/parquet"
+	"github.com/apache/arrow/go/v17/parquet/file"
+)
+
+// Scanning reads a numeric column's values straight from Parquet's column
+// chunk readers into buffers the Reader keeps, without building Arrow
+// arrays. Pass one needs only the non-null values and how many nulls there
+// were, and for that decoding into reused buffers costs about 0.6 of the
+// time pqarrow's record reader takes to build the same columns as arrays
+// (measured on the benchmark lake, make bench): no allocation, no zeroing,
+// no validity bitmaps.
+
+// scanKinds lists, per Arrow type, the Parquet physical types a scan
+// decodes it from, and whether the values are unsigned integers stored in
+// a signed physical type (Apache Parquet format specification, "Logical
+// Types": UINT_8 to UINT_32 annotate INT32, UINT_64 annotates INT64; older
+// writers store uint32 as INT64).
+var scanKinds = map[arrow.Type][]parquet.Type{
+	arrow.FLOAT64: {parquet.Types.Double},
+	arrow.FLOAT32: {parquet.Types.Float},
+	arrow.INT8:    {parquet.Types.Int32},
+	arrow.INT16:   {parquet.Types.Int32},
+	arrow.INT32:   {parquet.Types.Int32},
+	arrow.INT64:   {parquet.Types.Int64},
+	arrow.UINT8:   {parquet.Types.Int32},
+	arrow.UINT16:  {parquet.Types.Int32},
+	arrow.UINT32:  {parquet.Types.Int32, parquet.Types.Int64},
+	arrow.UINT64:  {parquet.Types.Int64},
+}
+
+func unsignedType(t arrow.Type) bool {
+	switch t {
+	case arrow.UINT8, arrow.UINT16, arrow.UINT32, arrow.UINT64:
+		return true
+	}
+	return false
+}
+
+// CanScan reports whether ScanColumn can read top-level column col: a flat
+// (not nested, not repeated) column of a float or integer Arrow type
+// stored in the matching Parquet physical type.
+func (r *Reader) CanScan(col int) bool {
+	fields := r.fr.Manifest.Fields
+	if col < 0 || col >= len(fields) || !fields[col].IsLeaf() {
+		return false
+	}
+	f := &fields[col]
+	d := r.pr.MetaData().Schema.Column(f.ColIndex)
+	if d.MaxRepetitionLevel() != 0 || d.MaxDefinitionLevel() > 1 {
+		return false
+	}
+	for _, pt := range scanKinds[f.Field.Type.ID()] {
+		if pt == d.PhysicalType() {
+			return true
+		}
+	}
+	return false
+}
+
+// scanBuffers are a Reader's reusable decode buffers.
+type scanBuffers struct {
+	f64  []float64
+	f32  []float32
+	i32  []int32
+	i64  []int64
+	defs []int16
+}
+
+func grow[T any](s []T, n int) []T {
+	if cap(s) < n {
+		return make([]T, n)
+	}
+	return s[:n]
+}
+
+// ScanColumn reads top-level column col (CanScan must hold) of row group
+// rg in batches of at most batchRows rows (DefaultBatchRows when <= 0) and
+// calls fn with each batch's non-null values, densely packed in a slice
+// the Reader reuses (valid only during the call), and the count of nulls
+// among its rows. The slice is []float64, []float32, []int32 (int8 to
+// int32), []int64, []uint32 (uint8 to uint32) or []uint64, by the column's
+// Arrow type. Columns scanned in ascending order read a file front to
+// back. ctx is checked before every batch (then context.Cause(ctx) comes
+// back unchanged); fn's error is returned unchanged; other errors name the
+// path and the column. The rows read must add up to the footer's count.
+func (r *Reader) ScanColumn(ctx context.Context, rg, col int, batchRows int64, fn func(vals any, nulls int) error) error {
+	if !r.CanScan(col) {
+		return pathError("read", r.path, fmt.Errorf("%w: column %d cannot be scanned", arrow.ErrInvalid, col))
+	}
+	if rg < 0 || rg >= r.NumRowGroups() {
+		return pathError("read", r.path, fmt.Errorf("%w: row group %d of %d", arrow.ErrIndex, rg, r.NumRowGroups()))
+	}
+	if batchRows <= 0 {
+		batchRows = DefaultBatchRows
+	}
+	f := &r.fr.Manifest.Fields[col]
+	name := f.Field.Name
+	fail := func(err error) error {
+		return pathError("read", r.path, fmt.Errorf("column %s: row group %d: %w", name, rg, err))
+	}
+	var cr file.ColumnChunkReader
+	if err := decoding(func() (err error) { cr, err = r.pr.RowGroup(rg).Column(f.ColIndex); return err }); err != nil {
+		return fail(err)
+	}
+	b := &r.scan
+	n := int(batchRows)
+	var defs []int16
+	if cr.Descriptor().MaxDefinitionLevel() > 0 {
+		b.defs = grow(b.defs, n)
+		defs = b.defs
+	}
+	unsigned := unsignedType(f.Field.Type.ID())
+	var rows int64
+	for {
+		if err := context.Cause(ctx); err != nil {
+			return err
+		}
+		var more bool
+		var total int64
+		var nv int
+		var vals any
+		err := decoding(func() (err error) {
+			if more = cr.HasNext(); !more {
+				return cr.Err()
+			}
+			switch c := cr.(type) {
+			case *file.Float64ColumnChunkReader:
+				b.f64 = grow(b.f64, n)
+				total, nv, err = c.ReadBatch(batchRows, b.f64, defs, nil)
+				vals = b.f64[:nv]
+			case *file.Float32ColumnChunkReader:
+				b.f32 = grow(b.f32, n)
+				total, nv, err = c.ReadBatch(batchRows, b.f32, defs, nil)
+				vals = b.f32[:nv]
+			case *file.Int32ColumnChunkReader:
+				b.i32 = grow(b.i32, n)
+				total, nv, err = c.ReadBatch(batchRows, b.i32, defs, nil)
+				vals = b.i32[:nv]
+				if unsigned { // the same bits, read as unsigned
+					vals = unsafe.Slice((*uint32)(unsafe.Pointer(unsafe.SliceData(b.i32))), nv)
+				}
+			case *file.Int64ColumnChunkReader:
+				b.i64 = grow(b.i64, n)
+				total, nv, err = c.ReadBatch(batchRows, b.i64, defs, nil)
+				vals = b.i64[:nv]
+				if unsigned {
+					vals = unsafe.Slice((*uint64)(unsafe.Pointer(unsafe.SliceData(b.i64))), nv)
+				}
+			default:
+				return fmt.Errorf("unexpected column reader %T", cr)
+			}
+			return err
+		})
+		if err != nil {
+			return fail(err)
+		}
+		if !more || total == 0 {
+			break
+		}
+		rows += total
+		if err := fn(vals, int(total)-nv); err != nil {
+			return err
+		}
+	}
+	if want := r.RowGroupRows(rg); rows != want {
+		return fail(fmt.Errorf("%w: read %d rows, the footer says %d", errCorruptData, rows, want))
+	}
+	return nil
+}
+
+// decoding runs f, turning a panic into an error: corrupt pages can make
+// Parquet's decoders panic, and a bad input must not take the process down.
+func decoding(f func() error) (err error) {
+	defer func() {
+		if p := recover(); p != nil {
+			err = fmt.Errorf("%w: %v", errCorruptData, p)
+		}
+	}()
+	return f()
+}
+
+// errCorruptData marks column data that does not match its footer.
+var errCorruptData = errors.New("corrupt column data")
