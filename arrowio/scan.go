@@ -68,11 +68,59 @@ func (r *Reader) CanScan(col int) bool {
 
 // scanBuffers are a Reader's reusable decode buffers.
 type scanBuffers struct {
-	f64  []float64
-	f32  []float32
-	i32  []int32
-	i64  []int64
-	defs []int16
+	f64   []float64
+	f32   []float32
+	i32   []int32
+	i64   []int64
+	defs  []int16
+	ones  []int16 // definition levels of a required column written as optional
+	bools []bool
+	i96   []parquet.Int96
+	bytes []parquet.ByteArray
+	fixed []parquet.FixedLenByteArray
+	out64 []float64
+	out32 []float32
+}
+
+// read decodes the next batch of at most n rows of a numeric column into
+// b: the non-null values, densely packed (as unsigned types when unsigned),
+// the rows read (0 at the end) and the count of values. defs, when not
+// nil, receives the definition levels. A panic of the decoder comes back
+// as an error.
+func (b *scanBuffers) read(cr file.ColumnChunkReader, n int, defs []int16, unsigned bool) (vals any, total int64, nv int, err error) {
+	err = decoding(func() (err error) {
+		if !cr.HasNext() {
+			return cr.Err()
+		}
+		switch c := cr.(type) {
+		case *file.Float64ColumnChunkReader:
+			b.f64 = grow(b.f64, n)
+			total, nv, err = c.ReadBatch(int64(n), b.f64, defs, nil)
+			vals = b.f64[:nv]
+		case *file.Float32ColumnChunkReader:
+			b.f32 = grow(b.f32, n)
+			total, nv, err = c.ReadBatch(int64(n), b.f32, defs, nil)
+			vals = b.f32[:nv]
+		case *file.Int32ColumnChunkReader:
+			b.i32 = grow(b.i32, n)
+			total, nv, err = c.ReadBatch(int64(n), b.i32, defs, nil)
+			vals = b.i32[:nv]
+			if unsigned { // the same bits, read as unsigned
+				vals = unsafe.Slice((*uint32)(unsafe.Pointer(unsafe.SliceData(b.i32))), nv)
+			}
+		case *file.Int64ColumnChunkReader:
+			b.i64 = grow(b.i64, n)
+			total, nv, err = c.ReadBatch(int64(n), b.i64, defs, nil)
+			vals = b.i64[:nv]
+			if unsigned {
+				vals = unsafe.Slice((*uint64)(unsafe.Pointer(unsafe.SliceData(b.i64))), nv)
+			}
+		default:
+			return fmt.Errorf("unexpected column reader %T", cr)
+		}
+		return err
+	})
+	return vals, total, nv, err
 }
 
 func grow[T any](s []T, n int) []T {
@@ -107,8 +155,8 @@ func (r *Reader) ScanColumn(ctx context.Context, rg, col int, batchRows int64, f
 	fail := func(err error) error {
 		return pathError("read", r.path, fmt.Errorf("column %s: row group %d: %w", name, rg, err))
 	}
-	var cr file.ColumnChunkReader
-	if err := decoding(func() (err error) { cr, err = r.pr.RowGroup(rg).Column(f.ColIndex); return err }); err != nil {
+	cr, err := r.columnReader(rg, f.ColIndex)
+	if err != nil {
 		return fail(err)
 	}
 	b := &r.scan
@@ -124,46 +172,11 @@ func (r *Reader) ScanColumn(ctx context.Context, rg, col int, batchRows int64, f
 		if err := context.Cause(ctx); err != nil {
 			return err
 		}
-		var more bool
-		var total int64
-		var nv int
-		var vals any
-		err := decoding(func() (err error) {
-			if more = cr.HasNext(); !more {
-				return cr.Err()
-			}
-			switch c := cr.(type) {
-			case *file.Float64ColumnChunkReader:
-				b.f64 = grow(b.f64, n)
-				total, nv, err = c.ReadBatch(batchRows, b.f64, defs, nil)
-				vals = b.f64[:nv]
-			case *file.Float32ColumnChunkReader:
-				b.f32 = grow(b.f32, n)
-				total, nv, err = c.ReadBatch(batchRows, b.f32, defs, nil)
-				vals = b.f32[:nv]
-			case *file.Int32ColumnChunkReader:
-				b.i32 = grow(b.i32, n)
-				total, nv, err = c.ReadBatch(batchRows, b.i32, defs, nil)
-				vals = b.i32[:nv]
-				if unsigned { // the same bits, read as unsigned
-					vals = unsafe.Slice((*uint32)(unsafe.Pointer(unsafe.SliceData(b.i32))), nv)
-				}
-			case *file.Int64ColumnChunkReader:
-				b.i64 = grow(b.i64, n)
-				total, nv, err = c.ReadBatch(batchRows, b.i64, defs, nil)
-				vals = b.i64[:nv]
-				if unsigned {
-					vals = unsafe.Slice((*uint64)(unsafe.Pointer(unsafe.SliceData(b.i64))), nv)
-				}
-			default:
-				return fmt.Errorf("unexpected column reader %T", cr)
-			}
-			return err
-		})
+		vals, total, nv, err := b.read(cr, n, defs, unsigned)
 		if err != nil {
 			return fail(err)
 		}
-		if !more || total == 0 {
+		if total == 0 {
 			break
 		}
 		rows += total

@@ -4,7 +4,6 @@ import (
 	"context"
 	"fmt"
 	"io"
-	"slices"
 
 	"github.com/apache/arrow/go/v17/arrow"
 	"github.com/apache/arrow/go/v17/arrow/memory"
@@ -42,6 +41,16 @@ type WriteOptions struct {
 	Metadata     map[string]string
 	// Mem allocates the writer's buffers; nil means memory.DefaultAllocator.
 	Mem memory.Allocator
+	// BatchRows is how many rows RewriteParquetAtomic moves at a time;
+	// 0 means DefaultBatchRows.
+	BatchRows int64
+}
+
+func (o WriteOptions) allocator() memory.Allocator {
+	if o.Mem == nil {
+		return memory.DefaultAllocator
+	}
+	return o.Mem
 }
 
 // Written describes a committed output file.
@@ -128,30 +137,32 @@ func WriteParquetAtomic(ctx context.Context, path string, schema *arrow.Schema, 
 	if err := context.Cause(ctx); err != nil {
 		return Written{}, err
 	}
-	mem := opts.Mem
-	if mem == nil {
-		mem = memory.DefaultAllocator
-	}
+	mem := opts.allocator()
 	props, arrowProps, err := writerProps(schema, opts, mem)
 	if err != nil {
 		return Written{}, pathError("write", path, err)
 	}
-	keys := make([]string, 0, len(opts.Metadata))
-	for k := range opts.Metadata {
-		if k == arrowSchemaKey {
-			return Written{}, pathError("write", path, fmt.Errorf("metadata key %q is reserved", k))
-		}
-		keys = append(keys, k)
+	keys, err := metadataKeys(opts.Metadata)
+	if err != nil {
+		return Written{}, pathError("write", path, err)
 	}
-	slices.Sort(keys)
+	return writeParquetFile(ctx, path, func(sink *stickyWriter) (int64, error) {
+		return writeParquet(ctx, sink, schema, props, arrowProps, keys, opts.Metadata, fill)
+	})
+}
 
+// writeParquetFile runs write over the temporary file (or object) of an
+// atomic write of path and commits it, with the file's size and SHA-256.
+// write returns the rows written; its errors other than context.Cause(ctx)
+// come back as "write path: err".
+func writeParquetFile(ctx context.Context, path string, write func(sink *stickyWriter) (int64, error)) (Written, error) {
 	st, key, err := Locate(path)
 	if err != nil {
 		return Written{}, err
 	}
 	var rows int64
 	n, sum, err := st.Write(ctx, key, false, func(w io.Writer) error {
-		r, err := writeParquet(ctx, &stickyWriter{w: w}, schema, props, arrowProps, keys, opts.Metadata, fill)
+		r, err := write(&stickyWriter{w: w})
 		if err == nil || err == context.Cause(ctx) {
 			rows = r
 			return err
@@ -167,53 +178,63 @@ func WriteParquetAtomic(ctx context.Context, path string, schema *arrow.Schema, 
 	return Written{Rows: rows, Bytes: n, SHA256: sum}, nil
 }
 
-// writeParquet runs the pqarrow writer over w. The writer panics on some
-// sink failures (the magic bytes, page writes); when w has recorded an I/O
-// error such a panic is that error and is returned as one. Any other panic
-// is a bug and is re-raised after the caller's cleanup runs.
-func writeParquet(ctx context.Context, w *stickyWriter, schema *arrow.Schema, props *parquet.WriterProperties, arrowProps pqarrow.ArrowWriterProperties, keys []string, meta map[string]string, fill func(*pqarrow.FileWriter) error) (rows int64, err error) {
-	var fw *pqarrow.FileWriter
+// sinkPanics runs write, which drives a Parquet writer over sink. The
+// writer panics on some sink failures (the magic bytes, page writes); when
+// sink has recorded an I/O error such a panic is that error, returned after
+// cleanup runs. Any other panic is a bug and is re-raised.
+func sinkPanics(sink *stickyWriter, cleanup func(), write func() (int64, error)) (rows int64, err error) {
 	defer func() {
 		if p := recover(); p != nil {
-			if w.err == nil {
+			if sink.err == nil {
 				panic(p)
 			}
-			closeQuietly(fw)
-			rows, err = 0, w.err
+			cleanup()
+			rows, err = 0, sink.err
 		}
 	}()
-	fw, err = pqarrow.NewFileWriter(schema, w, props, arrowProps)
-	if err != nil {
-		return 0, err
+	rows, err = write()
+	if err == nil && sink.err != nil {
+		// file.Writer.Close can drop an error from writing the footer; the
+		// sticky writer keeps it.
+		return 0, sink.err
 	}
-	if err := context.Cause(ctx); err != nil {
-		closeQuietly(fw)
-		return 0, err
-	}
-	ferr := fill(fw)
-	if err := context.Cause(ctx); err != nil {
-		closeQuietly(fw)
-		return 0, err
-	}
-	if ferr != nil {
-		closeQuietly(fw)
-		return 0, ferr
-	}
-	for _, k := range keys {
-		if err := fw.AppendKeyValueMetadata(k, meta[k]); err != nil {
+	return rows, err
+}
+
+// writeParquet runs the pqarrow writer over w, with fill writing the
+// record batches.
+func writeParquet(ctx context.Context, w *stickyWriter, schema *arrow.Schema, props *parquet.WriterProperties, arrowProps pqarrow.ArrowWriterProperties, keys []string, meta map[string]string, fill func(*pqarrow.FileWriter) error) (int64, error) {
+	var fw *pqarrow.FileWriter
+	return sinkPanics(w, func() { closeQuietly(fw) }, func() (int64, error) {
+		var err error
+		fw, err = pqarrow.NewFileWriter(schema, w, props, arrowProps)
+		if err != nil {
+			return 0, err
+		}
+		if err := context.Cause(ctx); err != nil {
 			closeQuietly(fw)
 			return 0, err
 		}
-	}
-	if err := fw.Close(); err != nil {
-		return 0, err
-	}
-	// file.Writer.Close can drop an error from writing the footer; the
-	// sticky writer keeps it.
-	if w.err != nil {
-		return 0, w.err
-	}
-	return int64(fw.NumRows()), nil
+		ferr := fill(fw)
+		if err := context.Cause(ctx); err != nil {
+			closeQuietly(fw)
+			return 0, err
+		}
+		if ferr != nil {
+			closeQuietly(fw)
+			return 0, ferr
+		}
+		for _, k := range keys {
+			if err := fw.AppendKeyValueMetadata(k, meta[k]); err != nil {
+				closeQuietly(fw)
+				return 0, err
+			}
+		}
+		if err := fw.Close(); err != nil {
+			return 0, err
+		}
+		return int64(fw.NumRows()), nil
+	})
 }
 
 // stickyWriter keeps the first error of w and returns it from every later

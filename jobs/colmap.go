@@ -1,6 +1,7 @@
 package jobs
 
 import (
+	"fmt"
 	"math"
 
 	"github.com/apache/arrow/go/v17/arrow"
@@ -50,6 +51,92 @@ func (p *plan) columnMapper(cfg *Config, params []stats.Params) (mapCol func(j i
 	return mapCol, func() []manifests.OutOfRange { return outside }
 }
 
+// valueMapper is columnMapper for batches of dense values (arrowio's
+// rewrite): mapVals(j, vals, out) fills out with selected column j's
+// values scaled (or mapped back), counting values outside the fitted
+// bounds as columnMapper does and, under InfError, refusing infinite
+// results.
+func (p *plan) valueMapper(cfg *Config, params []stats.Params) (mapVals func(j int, vals, out any) error, counts func() []manifests.OutOfRange) {
+	var outside []manifests.OutOfRange
+	if p.bounds != nil {
+		outside = make([]manifests.OutOfRange, len(p.Columns))
+	}
+	mapVals = func(j int, vals, out any) error {
+		if outside != nil {
+			b, c := countOutsideValues(vals, p.bounds[j][0], p.bounds[j][1])
+			outside[j].Below += b
+			outside[j].Above += c
+		}
+		var err error
+		if p.inverted {
+			dst, ok := out.([]float64)
+			if !ok {
+				return fmt.Errorf("cannot map back into %T", out)
+			}
+			err = stats.InverseValues(dst, vals, params[j])
+		} else {
+			err = stats.TransformValues(out, vals, params[j])
+		}
+		if err != nil {
+			return err
+		}
+		if cfg.InfPolicy == InfError {
+			if n := countInfValues(out); n > 0 {
+				return fmt.Errorf("%w: %d scaled values are infinite (want finite values; --on-infinity skip lets them through)", ErrInfinite, n)
+			}
+		}
+		return nil
+	}
+	return mapVals, func() []manifests.OutOfRange { return outside }
+}
+
+// countOutsideValues is countOutside for dense values.
+func countOutsideValues(vals any, lo, hi float64) (below, above uint64) {
+	switch v := vals.(type) {
+	case []float64:
+		return outsideDense(v, lo, hi)
+	case []float32:
+		return outsideDense(v, lo, hi)
+	case []int32:
+		return outsideDense(v, lo, hi)
+	case []int64:
+		return outsideDense(v, lo, hi)
+	case []uint32:
+		return outsideDense(v, lo, hi)
+	case []uint64:
+		return outsideDense(v, lo, hi)
+	}
+	return 0, 0
+}
+
+func outsideDense[T int8 | int16 | int32 | int64 | uint8 | uint16 | uint32 | uint64 | float32 | float64](vals []T, lo, hi float64) (below, above uint64) {
+	for _, v := range vals {
+		b, a := outside(float64(v), lo, hi)
+		below, above = below+b, above+a
+	}
+	return below, above
+}
+
+// countInfValues counts infinite values in a []float64 or []float32.
+func countInfValues(out any) int {
+	n := 0
+	switch v := out.(type) {
+	case []float64:
+		for _, x := range v {
+			if math.IsInf(x, 0) {
+				n++
+			}
+		}
+	case []float32:
+		for _, x := range v {
+			if math.IsInf(float64(x), 0) {
+				n++
+			}
+		}
+	}
+	return n
+}
+
 // boundsOf is each column's fitted [min, max] from its statistics.
 func boundsOf(cols []manifests.Column) [][2]float64 {
 	b := make([][2]float64, len(cols))
@@ -89,19 +176,27 @@ func countOutside(arr arrow.Array, lo, hi float64) (below, above uint64) {
 }
 
 func outsideOf[T int8 | int16 | int32 | int64 | uint8 | uint16 | uint32 | uint64 | float32 | float64](vals []T, arr arrow.Array, lo, hi float64) (below, above uint64) {
-	nulls := arr.NullN() > 0
+	if arr.NullN() == 0 {
+		return outsideDense(vals, lo, hi)
+	}
 	for i, v := range vals {
-		if nulls && arr.IsNull(i) {
-			continue
-		}
-		switch x := float64(v); {
-		case x < lo && !math.IsInf(x, -1):
-			below++
-		case x > hi && !math.IsInf(x, 1):
-			above++
+		if arr.IsValid(i) {
+			b, a := outside(float64(v), lo, hi)
+			below, above = below+b, above+a
 		}
 	}
 	return below, above
+}
+
+// outside is 1, 0 for a finite x below lo, 0, 1 for a finite x above hi.
+func outside(x, lo, hi float64) (below, above uint64) {
+	switch {
+	case x < lo && !math.IsInf(x, -1):
+		return 1, 0
+	case x > hi && !math.IsInf(x, 1):
+		return 0, 1
+	}
+	return 0, 0
 }
 
 // addOutside sums per-file counts into the manifest's columns and adds

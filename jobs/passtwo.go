@@ -15,10 +15,16 @@ import (
 	"github.com/lakescale/lakescale/stats"
 )
 
-// outputRowGroupRows caps an output row group. Each worker buffers one
+// outputRowGroupRows caps an output row group written through record
+// batches (files with nested columns). That way each worker buffers one
 // compressed row group while writing it, so the cap (rather than the
-// input's row-group size) bounds pass two's memory.
+// input's row-group size) bounds pass two's memory. Flat files are
+// rewritten with the input's row groups, streamed column by column.
 const outputRowGroupRows = 256 << 10
+
+// recordPathOnly makes pass two write every file through Arrow record
+// batches; tests compare the two ways.
+var recordPathOnly = false
 
 // hookFileWritten is called after each output file is in place; tests use
 // it to interrupt a run at a known point.
@@ -93,15 +99,7 @@ func scaleFile(ctx context.Context, cfg *Config, p *plan, i int, params []stats.
 		Metadata:     map[string]string{p.metaKey(): meta},
 	}
 	dst := arrowio.Join(cfg.Output, f.Rel)
-	mapCol, outside := p.columnMapper(cfg, params)
-	out, err := arrowio.WriteParquetAtomic(ctx, dst, schema, opts, func(w *pqarrow.FileWriter) error {
-		for rg := range r.NumRowGroups() {
-			if err := scaleRowGroup(ctx, cfg, r, rg, schema, which, p.Columns, mapCol, w); err != nil {
-				return fmt.Errorf("%s: %w", f.Rel, err)
-			}
-		}
-		return nil
-	})
+	out, outside, err := writeScaled(ctx, cfg, p, r, f.Rel, dst, schema, which, params, opts)
 	if err != nil {
 		return written{}, err
 	}
@@ -117,6 +115,41 @@ func scaleFile(ctx context.Context, cfg *Config, p *plan, i int, params []stats.
 		}
 	}
 	return res, nil
+}
+
+// writeScaled writes the scaled copy of r at dst. Flat files (every
+// column neither nested nor repeated, which is what lakescale's inputs
+// normally are) are rewritten column chunk by column chunk without Arrow
+// arrays (arrowio.RewriteParquetAtomic, output row groups as the input's);
+// others go through Arrow record batches (output row groups of at most
+// outputRowGroupRows rows). Either way the bytes depend only on the input.
+func writeScaled(ctx context.Context, cfg *Config, p *plan, r *arrowio.Reader, rel, dst string, schema *arrow.Schema,
+	which []int, params []stats.Params, opts arrowio.WriteOptions) (arrowio.Written, func() []manifests.OutOfRange, error) {
+	mapVals, outside := p.valueMapper(cfg, params)
+	maps := make([]arrowio.ValueMap, len(which))
+	for k, j := range which {
+		if j >= 0 {
+			maps[k] = func(vals, out any) error { return mapVals(j, vals, out) }
+		}
+	}
+	if !recordPathOnly && r.CanRewrite(schema, maps) {
+		opts.BatchRows = cfg.BatchRows
+		out, err := arrowio.RewriteParquetAtomic(ctx, dst, r, schema, maps, opts)
+		if err != nil && err != context.Cause(ctx) {
+			err = fmt.Errorf("%s: %w", rel, err)
+		}
+		return out, outside, err
+	}
+	mapCol, outside := p.columnMapper(cfg, params)
+	out, err := arrowio.WriteParquetAtomic(ctx, dst, schema, opts, func(w *pqarrow.FileWriter) error {
+		for rg := range r.NumRowGroups() {
+			if err := scaleRowGroup(ctx, cfg, r, rg, schema, which, p.Columns, mapCol, w); err != nil {
+				return fmt.Errorf("%s: %w", rel, err)
+			}
+		}
+		return nil
+	})
+	return out, outside, err
 }
 
 // scaleRowGroup writes one input row group as one output row group.

@@ -253,3 +253,84 @@ func tfValidity(mem memory.Allocator, arr arrow.Array) (*memory.Buffer, int) {
 	bitutil.CopyBitmap(src.Bytes(), off, n, dst.Bytes(), 0)
 	return dst, nulls
 }
+
+// TransformValues is Transform for a batch of dense values: it writes
+// Forward(float64(src[i])) into dst[i] for every i. src is a []int8 to
+// []int64, []uint8 to []uint64, []float32 or []float64; dst is a []float64,
+// or a []float32 (each value rounded once from the float64 result), at
+// least as long as src. Values equal Transform's bit for bit.
+func TransformValues(dst, src any, p Params) error {
+	if err := p.Validate(); err != nil {
+		return err
+	}
+	switch d := dst.(type) {
+	case []float64:
+		return forwardValues(d, src, p)
+	case []float32:
+		return forwardValues(d, src, p)
+	}
+	return fmt.Errorf("%w: cannot scale into %T", arrow.ErrType, dst)
+}
+
+func forwardValues[D float32 | float64](dst []D, src any, p Params) error {
+	c, s := p.Center, p.Scale
+	switch v := src.(type) {
+	case []int8:
+		return forwardInto(dst, v, c, s)
+	case []int16:
+		return forwardInto(dst, v, c, s)
+	case []int32:
+		return forwardInto(dst, v, c, s)
+	case []int64:
+		return forwardInto(dst, v, c, s)
+	case []uint8:
+		return forwardInto(dst, v, c, s)
+	case []uint16:
+		return forwardInto(dst, v, c, s)
+	case []uint32:
+		return forwardInto(dst, v, c, s)
+	case []uint64:
+		return forwardInto(dst, v, c, s)
+	case []float32:
+		return forwardInto(dst, v, c, s)
+	case []float64:
+		return forwardInto(dst, v, c, s)
+	}
+	return fmt.Errorf("%w: cannot scale values of Go type %T", arrow.ErrType, src)
+}
+
+func forwardInto[T tfNumber, D float32 | float64](dst []D, src []T, c, s float64) error {
+	if len(dst) < len(src) {
+		return fmt.Errorf("%w: %d values into room for %d", arrow.ErrIndex, len(src), len(dst))
+	}
+	tfForward(dst, src, c, s)
+	return nil
+}
+
+// InverseValues is InverseTransform for a batch of dense values: it writes
+// Inverse(float64(src[i])) into dst[i]. src is a []float64 or []float32;
+// dst is at least as long.
+func InverseValues(dst []float64, src any, p Params) error {
+	if err := p.Validate(); err != nil {
+		return err
+	}
+	n := 0
+	switch v := src.(type) {
+	case []float64:
+		n = len(v)
+	case []float32:
+		n = len(v)
+	default:
+		return fmt.Errorf("%w: cannot invert scaled values of Go type %T", arrow.ErrType, src)
+	}
+	if len(dst) < n {
+		return fmt.Errorf("%w: %d values into room for %d", arrow.ErrIndex, n, len(dst))
+	}
+	switch v := src.(type) {
+	case []float64:
+		tfInverse(dst, v, p.Center, p.Scale)
+	case []float32:
+		tfInverse(dst, v, p.Center, p.Scale)
+	}
+	return nil
+}

@@ -11,14 +11,17 @@
 // size lakescale uses by default; column parallelism off because files are
 // already read in parallel, one per worker), and the Go allocator.
 //
-// copy writes through arrowio.WriteParquetAtomic with the options pass two
-// uses (zstd, 1 Mi-row row-group cap), so it has lakescale's writer
-// settings: zstd level 1, dictionary encoding off for float columns, the
-// zstd codec that reuses encoders, a constant created_by, and the atomic
-// write
-// (SHA-256 while writing, fsync, rename). That makes the ratio "pass two
-// / write floor" measure exactly what scaling and lakescale's orchestration
-// add to a copy, and nothing the writer settings change.
+// copy writes the way pass two does: a flat file (every benchmark file)
+// through arrowio.RewriteParquetAtomic, column chunk by column chunk with
+// no map, anything else through arrowio.WriteParquetAtomic; so it has
+// lakescale's writer settings (zstd level 1 with raw blocks for pages zstd
+// cannot shrink, dictionary encoding off for float columns, encoders
+// reused, a constant created_by, row groups as the input's) and the atomic
+// write (SHA-256 while writing, fsync, rename). That makes the ratio "pass
+// two / write floor" measure what scaling and lakescale's orchestration add
+// to a copy, and nothing the writer settings change. (Integer columns keep
+// dictionary encoding in a copy; pass two writes them scaled, as floats
+// without a dictionary, which can make it cheaper than the copy.)
 //
 // -default-writer instead writes with pqarrow's default properties
 // (dictionary on for every column, 1 MiB pages) and zstd to a plain file:
@@ -217,7 +220,21 @@ func copyFile(src, dst string, defaultWriter bool) (rows, bytes int64, err error
 		return nil
 	}
 	if !defaultWriter {
-		wr, err := arrowio.WriteParquetAtomic(context.Background(), dst, schema, arrowio.WriteOptions{Compression: arrowio.Zstd}, fill)
+		// lakescale's writer: the column chunk rewrite pass two uses for
+		// flat files, or record batches through WriteParquetAtomic.
+		opts := arrowio.WriteOptions{Compression: arrowio.Zstd}
+		r, err := arrowio.Open(src, memory.DefaultAllocator)
+		if err != nil {
+			return 0, 0, err
+		}
+		defer r.Close()
+		maps := make([]arrowio.ValueMap, r.Schema().NumFields())
+		var wr arrowio.Written
+		if r.CanRewrite(r.Schema(), maps) {
+			wr, err = arrowio.RewriteParquetAtomic(context.Background(), dst, r, r.Schema(), maps, opts)
+		} else {
+			wr, err = arrowio.WriteParquetAtomic(context.Background(), dst, schema, opts, fill)
+		}
 		return wr.Rows, wr.Bytes, err
 	}
 	if err := os.MkdirAll(filepath.Dir(dst), 0o755); err != nil {

@@ -1,0 +1,364 @@
+package arrowio
+
+import (
+	"context"
+	"encoding/base64"
+	"fmt"
+	"slices"
+
+	"github.com/apache/arrow/go/v17/arrow"
+	"github.com/apache/arrow/go/v17/arrow/flight"
+	"github.com/apache/arrow/go/v17/arrow/memory"
+	"github.com/apache/arrow/go/v17/parquet"
+	"github.com/apache/arrow/go/v17/parquet/file"
+	"github.com/apache/arrow/go/v17/parquet/metadata"
+	"github.com/apache/arrow/go/v17/parquet/pqarrow"
+	"github.com/apache/arrow/go/v17/parquet/schema"
+)
+
+// Rewriting copies a Parquet file column chunk by column chunk with
+// Parquet's column readers and writers, replacing the values of some
+// columns on the way, without building Arrow arrays: values are decoded
+// into buffers the Reader keeps and encoded from them. Each output row
+// group is written column after column, its pages streamed to the file as
+// they fill (no row group is held in memory), and the input is read front
+// to back, so its hash follows the reads. On the benchmark lake a copy
+// this way cost about 0.8 of the CPU time and 0.4 of the memory of the
+// same copy through pqarrow's record reader and writer.
+
+// ValueMap replaces one batch of a column's values: vals are the batch's
+// non-null values as ScanColumn hands them out, and out, a []float64 or a
+// []float32 (by the output column's type) of exactly len(vals) elements,
+// receives the new values. Nulls stay null.
+type ValueMap func(vals, out any) error
+
+// rewritePlan is the output layout of a rewrite.
+type rewritePlan struct {
+	pq    *schema.Schema
+	props *parquet.WriterProperties
+	meta  metadata.KeyValueMetadata
+}
+
+// planRewrite checks that r's file can be rewritten into schema with maps
+// (indexed by top-level column; nil entries are copied): every column
+// flat, every mapped column scannable and written as a nullable float64 or
+// float32, every other column written in exactly the Parquet type, logical
+// type and nullability it is read in, as pqarrow would write schema.
+func planRewrite(r *Reader, out *arrow.Schema, maps []ValueMap, opts WriteOptions, mem memory.Allocator) (*rewritePlan, error) {
+	in := r.pr.MetaData().Schema
+	if len(maps) != len(r.fr.Manifest.Fields) || out.NumFields() != len(maps) || in.NumColumns() != len(maps) {
+		return nil, fmt.Errorf("rewrite: %d maps, %d output fields, %d input columns, %d input leaves",
+			len(maps), out.NumFields(), len(r.fr.Manifest.Fields), in.NumColumns())
+	}
+	props, arrowProps, err := writerProps(out, opts, mem)
+	if err != nil {
+		return nil, err
+	}
+	pq, err := pqarrow.ToParquet(out, props, arrowProps)
+	if err != nil {
+		return nil, err
+	}
+	if pq.NumColumns() != len(maps) {
+		return nil, fmt.Errorf("rewrite: output schema has %d leaf columns, want %d", pq.NumColumns(), len(maps))
+	}
+	for c, m := range maps {
+		f := &r.fr.Manifest.Fields[c]
+		if !f.IsLeaf() || f.ColIndex != c {
+			return nil, fmt.Errorf("rewrite: column %s is nested", f.Field.Name)
+		}
+		src, dst := in.Column(c), pq.Column(c)
+		if src.MaxRepetitionLevel() != 0 || src.MaxDefinitionLevel() > 1 || dst.MaxRepetitionLevel() != 0 {
+			return nil, fmt.Errorf("rewrite: column %s is nested or repeated", f.Field.Name)
+		}
+		if m != nil {
+			pt := dst.PhysicalType()
+			if !r.CanScan(c) || dst.MaxDefinitionLevel() != 1 || (pt != parquet.Types.Double && pt != parquet.Types.Float) {
+				return nil, fmt.Errorf("rewrite: column %s cannot be mapped to %s", f.Field.Name, out.Field(c).Type)
+			}
+			continue
+		}
+		pt := src.PhysicalType()
+		if pt != dst.PhysicalType() || (pt == parquet.Types.FixedLenByteArray && src.TypeLength() != dst.TypeLength()) ||
+			src.MaxDefinitionLevel() != dst.MaxDefinitionLevel() || !src.LogicalType().Equals(dst.LogicalType()) {
+			return nil, fmt.Errorf("rewrite: column %s would be written as %s (%s, length %d, max definition level %d), read as %s (%s, %d, %d)",
+				f.Field.Name, dst.PhysicalType(), dst.LogicalType(), dst.TypeLength(), dst.MaxDefinitionLevel(),
+				pt, src.LogicalType(), src.TypeLength(), src.MaxDefinitionLevel())
+		}
+	}
+	// The footer pqarrow's FileWriter writes: the Arrow schema's own
+	// metadata, then the serialized schema under "ARROW:schema".
+	meta := metadata.NewKeyValueMetadata()
+	md := out.Metadata()
+	for i, k := range md.Keys() {
+		if err := meta.Append(k, md.Values()[i]); err != nil {
+			return nil, err
+		}
+	}
+	if err := meta.Append(arrowSchemaKey, base64.StdEncoding.EncodeToString(flight.SerializeSchema(out, mem))); err != nil {
+		return nil, err
+	}
+	return &rewritePlan{pq: pq, props: props, meta: meta}, nil
+}
+
+// CanRewrite reports whether RewriteParquetAtomic can write r's file into
+// schema with maps; when it cannot, copy through Records and
+// WriteParquetAtomic instead.
+func (r *Reader) CanRewrite(schema *arrow.Schema, maps []ValueMap) bool {
+	_, err := planRewrite(r, schema, maps, WriteOptions{}, memory.DefaultAllocator)
+	return err == nil
+}
+
+// RewriteParquetAtomic writes at path, atomically as WriteParquetAtomic
+// does, a copy of r's file with the Arrow schema out, in which column c's
+// values are replaced by maps[c] where that is not nil; the other columns
+// are copied value for value. CanRewrite must hold. Row groups follow the
+// input's (opts.RowGroupRows is not used): each is written column by
+// column with its pages streamed out, so memory does not grow with the row
+// group. The footer holds the serialized Arrow schema and opts.Metadata
+// in sorted key order, as WriteParquetAtomic writes them. ctx is checked
+// between batches; a cancelled ctx gives context.Cause(ctx) unchanged.
+// An error from a map comes back as "write path: err".
+func RewriteParquetAtomic(ctx context.Context, path string, r *Reader, out *arrow.Schema, maps []ValueMap, opts WriteOptions) (Written, error) {
+	if err := context.Cause(ctx); err != nil {
+		return Written{}, err
+	}
+	mem := opts.allocator()
+	plan, err := planRewrite(r, out, maps, opts, mem)
+	if err != nil {
+		return Written{}, pathError("write", path, err)
+	}
+	keys, err := metadataKeys(opts.Metadata)
+	if err != nil {
+		return Written{}, pathError("write", path, err)
+	}
+	return writeParquetFile(ctx, path, func(sink *stickyWriter) (int64, error) {
+		var fw *file.Writer
+		return sinkPanics(sink, func() { closeWriterQuietly(fw) }, func() (int64, error) {
+			fw = file.NewParquetWriter(sink, plan.pq.Root(), file.WithWriterProps(plan.props), file.WithWriteMetadata(plan.meta))
+			var rows int64
+			for rg := range r.NumRowGroups() {
+				n, err := r.rewriteRowGroup(ctx, fw.AppendRowGroup(), rg, maps, int(opts.BatchRows))
+				if err != nil {
+					closeWriterQuietly(fw)
+					return 0, err
+				}
+				rows += n
+			}
+			for _, k := range keys {
+				if err := fw.AppendKeyValueMetadata(k, opts.Metadata[k]); err != nil {
+					closeWriterQuietly(fw)
+					return 0, err
+				}
+			}
+			if err := fw.Close(); err != nil {
+				return 0, err
+			}
+			return rows, nil
+		})
+	})
+}
+
+// rewriteRowGroup copies or maps every column of row group rg into rgw,
+// in column order, and closes rgw.
+func (r *Reader) rewriteRowGroup(ctx context.Context, rgw file.SerialRowGroupWriter, rg int, maps []ValueMap, batch int) (int64, error) {
+	if batch <= 0 {
+		batch = DefaultBatchRows
+	}
+	want := r.RowGroupRows(rg)
+	for c, m := range maps {
+		name := r.fr.Manifest.Fields[c].Field.Name
+		cw, err := rgw.NextColumn()
+		if err != nil {
+			return 0, err
+		}
+		var rows int64
+		if m != nil {
+			rows, err = r.mapColumn(ctx, rg, c, cw, m, batch)
+		} else {
+			rows, err = r.copyColumn(ctx, rg, c, cw, batch)
+		}
+		if err == nil && rows != want {
+			err = fmt.Errorf("%w: read %d rows, the footer says %d", errCorruptData, rows, want)
+		}
+		if err != nil {
+			if cerr := context.Cause(ctx); cerr != nil && err == cerr {
+				return 0, err
+			}
+			return 0, fmt.Errorf("column %s: row group %d: %w", name, rg, err)
+		}
+		if err := cw.Close(); err != nil {
+			return 0, fmt.Errorf("column %s: row group %d: %w", name, rg, err)
+		}
+	}
+	if err := rgw.Close(); err != nil {
+		return 0, err
+	}
+	return want, nil
+}
+
+// mapColumn reads column c of row group rg in batches, maps each batch's
+// values and writes them to cw with the input's definition levels (all
+// defined when the input column is required).
+func (r *Reader) mapColumn(ctx context.Context, rg, c int, cw file.ColumnChunkWriter, m ValueMap, n int) (int64, error) {
+	cr, err := r.columnReader(rg, c)
+	if err != nil {
+		return 0, err
+	}
+	b := &r.scan
+	var defs, levels []int16 // read into, written from
+	if cr.Descriptor().MaxDefinitionLevel() > 0 {
+		b.defs = grow(b.defs, n)
+		defs, levels = b.defs, b.defs
+	} else {
+		if len(b.ones) < n {
+			b.ones = make([]int16, n)
+			for i := range b.ones {
+				b.ones[i] = 1
+			}
+		}
+		levels = b.ones
+	}
+	unsigned := unsignedType(r.fr.Manifest.Fields[c].Field.Type.ID())
+	var rows int64
+	for {
+		if err := context.Cause(ctx); err != nil {
+			return 0, err
+		}
+		vals, total, nv, err := b.read(cr, n, defs, unsigned)
+		if err != nil || total == 0 {
+			return rows, err
+		}
+		rows += total
+		switch w := cw.(type) {
+		case *file.Float64ColumnChunkWriter:
+			b.out64 = grow(b.out64, nv)
+			if err := m(vals, b.out64); err != nil {
+				return 0, err
+			}
+			_, err = w.WriteBatch(b.out64, levels[:total], nil)
+		case *file.Float32ColumnChunkWriter:
+			b.out32 = grow(b.out32, nv)
+			if err := m(vals, b.out32); err != nil {
+				return 0, err
+			}
+			_, err = w.WriteBatch(b.out32, levels[:total], nil)
+		default:
+			err = fmt.Errorf("cannot map into a %T", cw)
+		}
+		if err != nil {
+			return 0, err
+		}
+	}
+}
+
+// columnReader opens the reader of leaf column c of row group rg.
+func (r *Reader) columnReader(rg, c int) (cr file.ColumnChunkReader, err error) {
+	err = decoding(func() (err error) { cr, err = r.pr.RowGroup(rg).Column(c); return err })
+	return cr, err
+}
+
+// copyColumn copies column c of row group rg value for value into cw.
+func (r *Reader) copyColumn(ctx context.Context, rg, c int, cw file.ColumnChunkWriter, n int) (int64, error) {
+	cr, err := r.columnReader(rg, c)
+	if err != nil {
+		return 0, err
+	}
+	b := &r.scan
+	var defs []int16
+	if cr.Descriptor().MaxDefinitionLevel() > 0 {
+		b.defs = grow(b.defs, n)
+		defs = b.defs
+	}
+	switch cr := cr.(type) {
+	case *file.BooleanColumnChunkReader:
+		return copyChunk(ctx, cr, cw, &b.bools, defs, n)
+	case *file.Int32ColumnChunkReader:
+		return copyChunk(ctx, cr, cw, &b.i32, defs, n)
+	case *file.Int64ColumnChunkReader:
+		return copyChunk(ctx, cr, cw, &b.i64, defs, n)
+	case *file.Int96ColumnChunkReader:
+		return copyChunk(ctx, cr, cw, &b.i96, defs, n)
+	case *file.Float32ColumnChunkReader:
+		return copyChunk(ctx, cr, cw, &b.f32, defs, n)
+	case *file.Float64ColumnChunkReader:
+		return copyChunk(ctx, cr, cw, &b.f64, defs, n)
+	case *file.ByteArrayColumnChunkReader:
+		return copyChunk(ctx, cr, cw, &b.bytes, defs, n)
+	case *file.FixedLenByteArrayColumnChunkReader:
+		return copyChunk(ctx, cr, cw, &b.fixed, defs, n)
+	}
+	return 0, fmt.Errorf("cannot copy a %T", cr)
+}
+
+// chunkReader and chunkWriter are the typed column chunk readers and
+// writers of Parquet's file package, for values of Go type T.
+type chunkReader[T any] interface {
+	HasNext() bool
+	Err() error
+	ReadBatch(batchSize int64, values []T, defLvls, repLvls []int16) (total int64, valuesRead int, err error)
+}
+
+type chunkWriter[T any] interface {
+	WriteBatch(values []T, defLevels, repLevels []int16) (valueOffset int64, err error)
+}
+
+// copyChunk moves a flat column's values and definition levels (defs nil
+// for a required column) from cr to cw, a writer of the same type, in
+// batches through *buf. Byte-array values point into cr's page buffers;
+// the writer copies them before the next read.
+func copyChunk[T any](ctx context.Context, cr chunkReader[T], cw file.ColumnChunkWriter, buf *[]T, defs []int16, n int) (int64, error) {
+	w, ok := cw.(chunkWriter[T])
+	if !ok {
+		return 0, fmt.Errorf("cannot copy %T values into a %T", *buf, cw)
+	}
+	*buf = grow(*buf, n)
+	var rows int64
+	for {
+		if err := context.Cause(ctx); err != nil {
+			return 0, err
+		}
+		var total int64
+		var nv int
+		err := decoding(func() (err error) {
+			if !cr.HasNext() {
+				return cr.Err()
+			}
+			total, nv, err = cr.ReadBatch(int64(n), *buf, defs, nil)
+			return err
+		})
+		if err != nil || total == 0 {
+			return rows, err
+		}
+		rows += total
+		var lv []int16
+		if defs != nil {
+			lv = defs[:total]
+		}
+		if _, err := w.WriteBatch((*buf)[:nv], lv, nil); err != nil {
+			return 0, err
+		}
+	}
+}
+
+// metadataKeys returns the keys of user metadata in sorted order, refusing
+// the key the serialized Arrow schema is stored under.
+func metadataKeys(meta map[string]string) ([]string, error) {
+	keys := make([]string, 0, len(meta))
+	for k := range meta {
+		if k == arrowSchemaKey {
+			return nil, fmt.Errorf("metadata key %q is reserved", k)
+		}
+		keys = append(keys, k)
+	}
+	slices.Sort(keys)
+	return keys, nil
+}
+
+// closeWriterQuietly closes fw on an error path; the output is discarded.
+func closeWriterQuietly(fw *file.Writer) {
+	if fw == nil {
+		return
+	}
+	defer func() { _ = recover() }()
+	_ = fw.Close()
+}
