@@ -185,6 +185,11 @@ func TestEncodePageRawOnlyWhenIncompressible(t *testing.T) {
 		if err != nil || !bytes.Equal(plain, c.src) {
 			t.Fatalf("%s: round trip: %v", c.name, err)
 		}
+		// Arrow passes a reused dst with room to spare and old contents.
+		dst := bytes.Repeat([]byte{0xAA}, 3<<20)[:17]
+		if again := codec.EncodeLevel(dst, c.src, 1); !bytes.Equal(again, got) {
+			t.Errorf("%s: encoding into a used buffer gives other bytes", c.name)
+		}
 		isRaw := len(got) >= len(c.src) && bytes.Equal(got, appendRawFrame(nil, c.src))
 		if isRaw != c.raw {
 			t.Errorf("%s: stored raw = %v (%d of %d bytes), want %v", c.name, isRaw, len(got), len(c.src), c.raw)

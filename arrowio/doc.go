@@ -10,8 +10,12 @@
 // temporary names) is handled beside the Store, for local locations only.
 //
 // It discovers partitioned Parquet datasets (flat or Hive-style key=value
-// folders), opens Parquet files for streaming reads of selected columns
-// (hashing each file on the way, Reader.Checksum), writes Parquet files
+// folders), opens Parquet files for streaming reads of selected columns,
+// as Arrow record batches or, for numeric columns, as dense values in
+// reused buffers (Reader.ScanColumn), hashing each file on the way
+// (Reader.Checksum), rewrites flat Parquet files column chunk by column
+// chunk with some columns' values mapped (RewriteParquetAtomic), writes
+// Parquet files
 // and JSON documents atomically (on local disk: temporary name
 // ".<name>.tmp-*" in the destination folder, fsync, rename, fsync of the
 // folder; on S3: one upload, multipart above a threshold, that appears
@@ -34,6 +38,7 @@
 // It does not decide what to compute or which files to write; package jobs
 // does. A Reader is not safe for concurrent use (open one per worker); the
 // package-level functions and Stores are. Importing the package replaces
-// Arrow's zstd codec with one that reuses encoders (see codec.go); its
-// output is the same bytes.
+// Arrow's zstd codec with one that reuses encoders and stores pages zstd
+// cannot shrink in raw blocks (see codec.go); other pages are the same
+// bytes as Arrow's codec gives.
 package arrowio

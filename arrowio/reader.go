@@ -48,6 +48,7 @@ type Reader struct {
 	schema *arrow.Schema
 	meta   map[string]string
 	footer string
+	size   int64
 	scan   scanBuffers
 }
 
@@ -62,6 +63,16 @@ func Open(path string, mem memory.Allocator) (*Reader, error) {
 // OpenContext is Open whose reads stop when ctx is done: on an object
 // store a request in flight is cancelled, not waited for.
 func OpenContext(ctx context.Context, path string, mem memory.Allocator) (*Reader, error) {
+	return open(ctx, path, mem, true)
+}
+
+// OpenUnhashed is OpenContext without hashing the reads, for a file whose
+// hash is already known; Checksum then fails.
+func OpenUnhashed(ctx context.Context, path string, mem memory.Allocator) (*Reader, error) {
+	return open(ctx, path, mem, false)
+}
+
+func open(ctx context.Context, path string, mem memory.Allocator, hash bool) (*Reader, error) {
 	if mem == nil {
 		mem = memory.DefaultAllocator
 	}
@@ -73,14 +84,22 @@ func OpenContext(ctx context.Context, path string, mem memory.Allocator) (*Reade
 	if err != nil {
 		return nil, err
 	}
-	hs := newSeqHasher(obj)
-	r, err := newReader(path, hs, mem)
+	src := obj
+	var hs *seqHasher
+	if hash {
+		hs = newSeqHasher(obj)
+		src = hs
+	}
+	r, err := newReader(path, src, mem)
 	if err != nil {
 		_ = obj.Close() // the open error is the one to report
 		return nil, pathError("open", path, err)
 	}
-	r.hasher = hs
-	hs.start()
+	r.size = obj.Size()
+	if hs != nil {
+		r.hasher = hs
+		hs.start()
+	}
 	return r, nil
 }
 
@@ -89,6 +108,9 @@ func OpenContext(ctx context.Context, path string, mem memory.Allocator) (*Reade
 // Checksum reads only what they skipped (columns not read, the footer).
 // Call it after the last Records; reads made after it are not hashed.
 func (r *Reader) Checksum() (size int64, sum string, err error) {
+	if r.hasher == nil {
+		return 0, "", pathError("hash", r.path, errors.New("opened without hashing"))
+	}
 	size, sum, err = r.hasher.Sum()
 	if err != nil {
 		return 0, "", pathError("hash", r.path, unwrapPath(err))
@@ -201,6 +223,9 @@ func (r *Reader) Path() string { return r.path }
 // Records returns, so a schema written by WriteParquetAtomic reads back
 // Equal.
 func (r *Reader) Schema() *arrow.Schema { return r.schema }
+
+// Size is the file's size in bytes.
+func (r *Reader) Size() int64 { return r.size }
 
 // NumRows is the row count from the footer.
 func (r *Reader) NumRows() int64 { return r.pr.NumRows() }

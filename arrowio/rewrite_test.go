@@ -129,8 +129,8 @@ func TestRewriteMaps(t *testing.T) {
 		if got, ok := cols[3][i].(float64); !ok || got != float64(row.n)+1 {
 			t.Fatalf("row %d n = %v, want %v", i, cols[3][i], float64(row.n)+1)
 		}
-		if cols[2][i] == nil && row.site != nil {
-			t.Fatalf("row %d site lost", i)
+		if row.site == nil && cols[2][i] != nil || row.site != nil && cols[2][i] != *row.site {
+			t.Fatalf("row %d site = %#v, want %#v", i, cols[2][i], deref(row.site))
 		}
 	}
 }
@@ -234,5 +234,64 @@ func TestRewriteFailures(t *testing.T) {
 	}
 	if got := listDir(t, dir); len(got) != 1 || got[0] != "bad.parquet" {
 		t.Errorf("left behind: %v", got)
+	}
+}
+
+// fakeChunk is a column chunk reader that serves scripted batches, for
+// the failures Parquet's own reader lets through.
+type fakeChunk struct {
+	batches []fakeBatch
+	err     error // what Err reports once the batches are used up
+}
+
+type fakeBatch struct {
+	vals []int32
+	defs []int16
+}
+
+func (f *fakeChunk) HasNext() bool { return len(f.batches) > 0 }
+
+func (f *fakeChunk) Err() error {
+	if len(f.batches) == 0 {
+		return f.err
+	}
+	return nil
+}
+
+func (f *fakeChunk) ReadBatch(n int64, vals []int32, defs, _ []int16) (int64, int, error) {
+	b := f.batches[0]
+	f.batches = f.batches[1:]
+	copy(vals, b.vals)
+	copy(defs, b.defs)
+	return int64(max(len(b.defs), len(b.vals))), len(b.vals), nil
+}
+
+// TestReadChunkChecks: readChunk reports an error the column reader met
+// opening a later page though ReadBatch returned none (Parquet's reader
+// would otherwise go on decoding with the previous page's decoder), keeps
+// reporting it, and refuses a batch whose value count does not match its
+// definition levels (or, for a required column, its rows).
+func TestReadChunkChecks(t *testing.T) {
+	buf, defs := make([]int32, 8), make([]int16, 8)
+	broken := errors.New("bad page header")
+	cr := &fakeChunk{batches: []fakeBatch{{vals: []int32{1, 2}, defs: []int16{1, 0, 1}}, {vals: []int32{3}, defs: []int16{1}}}, err: broken}
+	vals, lv, n, err := readChunk[int32](cr, buf, defs)
+	if err != nil || n != 3 || len(vals) != 2 || cap(vals) != 2 || len(lv) != 3 {
+		t.Fatalf("first batch: %v %v %d %v", vals, lv, n, err)
+	}
+	// The second batch comes back while the reader has met an error
+	// opening the page after it.
+	for range 2 {
+		if _, _, _, err := readChunk[int32](cr, buf, defs); !errors.Is(err, broken) {
+			t.Errorf("after a page error: %v, want it", err)
+		}
+	}
+	short := &fakeChunk{batches: []fakeBatch{{vals: []int32{1}, defs: []int16{1, 1, 0}}}}
+	if _, _, _, err := readChunk[int32](short, buf, defs); !errors.Is(err, errCorruptData) {
+		t.Errorf("1 value for 2 defined rows: %v, want errCorruptData", err)
+	}
+	required := &fakeChunk{batches: []fakeBatch{{vals: []int32{1, 2}, defs: []int16{0, 0, 0}}}}
+	if _, _, _, err := readChunk[int32](required, buf, nil); !errors.Is(err, errCorruptData) {
+		t.Errorf("2 values for 3 required rows: %v, want errCorruptData", err)
 	}
 }

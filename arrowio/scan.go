@@ -19,22 +19,21 @@ import (
 // (measured on the benchmark lake, make bench): no allocation, no zeroing,
 // no validity bitmaps.
 
-// scanKinds lists, per Arrow type, the Parquet physical types a scan
-// decodes it from, and whether the values are unsigned integers stored in
-// a signed physical type (Apache Parquet format specification, "Logical
-// Types": UINT_8 to UINT_32 annotate INT32, UINT_64 annotates INT64; older
-// writers store uint32 as INT64).
-var scanKinds = map[arrow.Type][]parquet.Type{
-	arrow.FLOAT64: {parquet.Types.Double},
-	arrow.FLOAT32: {parquet.Types.Float},
-	arrow.INT8:    {parquet.Types.Int32},
-	arrow.INT16:   {parquet.Types.Int32},
-	arrow.INT32:   {parquet.Types.Int32},
-	arrow.INT64:   {parquet.Types.Int64},
-	arrow.UINT8:   {parquet.Types.Int32},
-	arrow.UINT16:  {parquet.Types.Int32},
-	arrow.UINT32:  {parquet.Types.Int32, parquet.Types.Int64},
-	arrow.UINT64:  {parquet.Types.Int64},
+// scanKinds gives, per Arrow type, the Parquet physical type a scan
+// decodes it from (Apache Parquet format specification, "Logical Types":
+// UINT_8 to UINT_32 annotate INT32, UINT_64 annotates INT64, so unsigned
+// values arrive as the bits of signed ones).
+var scanKinds = map[arrow.Type]parquet.Type{
+	arrow.FLOAT64: parquet.Types.Double,
+	arrow.FLOAT32: parquet.Types.Float,
+	arrow.INT8:    parquet.Types.Int32,
+	arrow.INT16:   parquet.Types.Int32,
+	arrow.INT32:   parquet.Types.Int32,
+	arrow.INT64:   parquet.Types.Int64,
+	arrow.UINT8:   parquet.Types.Int32,
+	arrow.UINT16:  parquet.Types.Int32,
+	arrow.UINT32:  parquet.Types.Int32,
+	arrow.UINT64:  parquet.Types.Int64,
 }
 
 func unsignedType(t arrow.Type) bool {
@@ -58,12 +57,8 @@ func (r *Reader) CanScan(col int) bool {
 	if d.MaxRepetitionLevel() != 0 || d.MaxDefinitionLevel() > 1 {
 		return false
 	}
-	for _, pt := range scanKinds[f.Field.Type.ID()] {
-		if pt == d.PhysicalType() {
-			return true
-		}
-	}
-	return false
+	pt, ok := scanKinds[f.Field.Type.ID()]
+	return ok && pt == d.PhysicalType()
 }
 
 // scanBuffers are a Reader's reusable decode buffers.
@@ -83,43 +78,40 @@ type scanBuffers struct {
 }
 
 // read decodes the next batch of at most n rows of a numeric column into
-// b: the non-null values, densely packed (as unsigned types when unsigned),
-// the rows read (0 at the end) and the count of values. defs, when not
-// nil, receives the definition levels. A panic of the decoder comes back
-// as an error.
+// b (see readChunk): the non-null values, densely packed (as unsigned
+// types when unsigned), the rows read (0 at the end) and the count of
+// values. defs, when not nil, receives the definition levels.
 func (b *scanBuffers) read(cr file.ColumnChunkReader, n int, defs []int16, unsigned bool) (vals any, total int64, nv int, err error) {
-	err = decoding(func() (err error) {
-		if !cr.HasNext() {
-			return cr.Err()
+	switch c := cr.(type) {
+	case *file.Float64ColumnChunkReader:
+		b.f64 = grow(b.f64, n)
+		var v []float64
+		v, _, total, err = readChunk(c, b.f64, defs)
+		vals, nv = v, len(v)
+	case *file.Float32ColumnChunkReader:
+		b.f32 = grow(b.f32, n)
+		var v []float32
+		v, _, total, err = readChunk(c, b.f32, defs)
+		vals, nv = v, len(v)
+	case *file.Int32ColumnChunkReader:
+		b.i32 = grow(b.i32, n)
+		var v []int32
+		v, _, total, err = readChunk(c, b.i32, defs)
+		vals, nv = v, len(v)
+		if unsigned { // the same bits, read as unsigned
+			vals = unsafe.Slice((*uint32)(unsafe.Pointer(unsafe.SliceData(v))), nv)
 		}
-		switch c := cr.(type) {
-		case *file.Float64ColumnChunkReader:
-			b.f64 = grow(b.f64, n)
-			total, nv, err = c.ReadBatch(int64(n), b.f64, defs, nil)
-			vals = b.f64[:nv]
-		case *file.Float32ColumnChunkReader:
-			b.f32 = grow(b.f32, n)
-			total, nv, err = c.ReadBatch(int64(n), b.f32, defs, nil)
-			vals = b.f32[:nv]
-		case *file.Int32ColumnChunkReader:
-			b.i32 = grow(b.i32, n)
-			total, nv, err = c.ReadBatch(int64(n), b.i32, defs, nil)
-			vals = b.i32[:nv]
-			if unsigned { // the same bits, read as unsigned
-				vals = unsafe.Slice((*uint32)(unsafe.Pointer(unsafe.SliceData(b.i32))), nv)
-			}
-		case *file.Int64ColumnChunkReader:
-			b.i64 = grow(b.i64, n)
-			total, nv, err = c.ReadBatch(int64(n), b.i64, defs, nil)
-			vals = b.i64[:nv]
-			if unsigned {
-				vals = unsafe.Slice((*uint64)(unsafe.Pointer(unsafe.SliceData(b.i64))), nv)
-			}
-		default:
-			return fmt.Errorf("unexpected column reader %T", cr)
+	case *file.Int64ColumnChunkReader:
+		b.i64 = grow(b.i64, n)
+		var v []int64
+		v, _, total, err = readChunk(c, b.i64, defs)
+		vals, nv = v, len(v)
+		if unsigned {
+			vals = unsafe.Slice((*uint64)(unsafe.Pointer(unsafe.SliceData(v))), nv)
 		}
-		return err
-	})
+	default:
+		err = fmt.Errorf("unexpected column reader %T", cr)
+	}
 	return vals, total, nv, err
 }
 
@@ -135,8 +127,8 @@ func grow[T any](s []T, n int) []T {
 // calls fn with each batch's non-null values, densely packed in a slice
 // the Reader reuses (valid only during the call), and the count of nulls
 // among its rows. The slice is []float64, []float32, []int32 (int8 to
-// int32), []int64, []uint32 (uint8 to uint32) or []uint64, by the column's
-// Arrow type. Columns scanned in ascending order read a file front to
+// int32), []int64, []uint32 (uint8 to uint32) or []uint64, by the
+// column's Arrow type. Columns scanned in ascending order read a file front to
 // back. ctx is checked before every batch (then context.Cause(ctx) comes
 // back unchanged); fn's error is returned unchanged; other errors name the
 // path and the column. The rows read must add up to the footer's count.

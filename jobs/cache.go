@@ -343,9 +343,8 @@ func decodeEntry(data []byte, k cacheKey) (fileResult, cacheState) {
 // carries the cache state for the log.
 func (p *plan) reuse(cfg *Config, i int, r *arrowio.Reader) (res fileResult, done bool, err error) {
 	f := p.Files[i]
-	state, footer := cacheOff, ""
+	state, footer := cacheOff, r.FooterChecksum()
 	if p.cache != nil {
-		footer = r.FooterChecksum()
 		k, err := keyOf(p, i, footer)
 		if err != nil {
 			return fileResult{}, false, err

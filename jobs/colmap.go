@@ -63,7 +63,10 @@ func (p *plan) valueMapper(cfg *Config, params []stats.Params) (mapVals func(j i
 	}
 	mapVals = func(j int, vals, out any) error {
 		if outside != nil {
-			b, c := countOutsideValues(vals, p.bounds[j][0], p.bounds[j][1])
+			b, c, err := countOutsideValues(vals, p.bounds[j][0], p.bounds[j][1])
+			if err != nil {
+				return err
+			}
 			outside[j].Below += b
 			outside[j].Above += c
 		}
@@ -91,22 +94,32 @@ func (p *plan) valueMapper(cfg *Config, params []stats.Params) (mapVals func(j i
 }
 
 // countOutsideValues is countOutside for dense values.
-func countOutsideValues(vals any, lo, hi float64) (below, above uint64) {
+func countOutsideValues(vals any, lo, hi float64) (below, above uint64, err error) {
 	switch v := vals.(type) {
 	case []float64:
-		return outsideDense(v, lo, hi)
+		below, above = outsideDense(v, lo, hi)
 	case []float32:
-		return outsideDense(v, lo, hi)
+		below, above = outsideDense(v, lo, hi)
+	case []int8:
+		below, above = outsideDense(v, lo, hi)
+	case []int16:
+		below, above = outsideDense(v, lo, hi)
 	case []int32:
-		return outsideDense(v, lo, hi)
+		below, above = outsideDense(v, lo, hi)
 	case []int64:
-		return outsideDense(v, lo, hi)
+		below, above = outsideDense(v, lo, hi)
+	case []uint8:
+		below, above = outsideDense(v, lo, hi)
+	case []uint16:
+		below, above = outsideDense(v, lo, hi)
 	case []uint32:
-		return outsideDense(v, lo, hi)
+		below, above = outsideDense(v, lo, hi)
 	case []uint64:
-		return outsideDense(v, lo, hi)
+		below, above = outsideDense(v, lo, hi)
+	default:
+		err = fmt.Errorf("cannot compare values of Go type %T with the fitted range", vals)
 	}
-	return 0, 0
+	return below, above, err
 }
 
 func outsideDense[T int8 | int16 | int32 | int64 | uint8 | uint16 | uint32 | uint64 | float32 | float64](vals []T, lo, hi float64) (below, above uint64) {

@@ -18,4 +18,7 @@ var (
 	ErrOutputNotEmpty = errors.New("output directory not empty")
 	// ErrVerify marks a dataset that does not match its manifest.
 	ErrVerify = errors.New("verification failed")
+	// ErrInputChanged marks an input whose size or footer changed between
+	// a run's two passes.
+	ErrInputChanged = errors.New("input changed during the run")
 )

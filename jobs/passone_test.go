@@ -3,9 +3,11 @@ package jobs
 import (
 	"bytes"
 	"context"
+	"errors"
 	"os"
 	"path/filepath"
 	"slices"
+	"strings"
 	"testing"
 
 	"github.com/apache/arrow/go/v17/arrow"
@@ -82,15 +84,43 @@ func TestRewriteAndRecordPathsAgree(t *testing.T) {
 	lake := t.TempDir()
 	writeDemoLake(t, lake)
 	outs := map[bool]string{}
+	fit := "site=north-ridge" // the other sites fall partly outside its range
 	for _, records := range []bool{false, true} {
 		recordPathOnly = records
 		out := filepath.Join(t.TempDir(), "out")
-		err := Run(context.Background(), testConfig(t, lake, out, 2))
+		cfg, err := Load("", Overrides{Input: &lake, Output: &out, Fit: &fit})
+		if err != nil {
+			t.Fatal(err)
+		}
+		cfg.BatchRows = 500
+		err = Run(context.Background(), cfg)
 		recordPathOnly = false
 		if err != nil {
 			t.Fatal(err)
 		}
 		outs[records] = out
+	}
+	// Every demo file takes the rewrite path when it is allowed to.
+	m := readManifestT(t, filepath.Join(outs[false], "_manifest.json"))
+	inputs, err := filepath.Glob(filepath.Join(lake, "site=*", "day=*", "*.parquet"))
+	if err != nil || len(inputs) == 0 {
+		t.Fatalf("%d inputs, %v", len(inputs), err)
+	}
+	for _, in := range inputs {
+		r, err := arrowio.Open(in, memory.DefaultAllocator)
+		if err != nil {
+			t.Fatal(err)
+		}
+		maps := make([]arrowio.ValueMap, r.Schema().NumFields())
+		var idx []int
+		for _, c := range m.Columns {
+			k := r.Schema().FieldIndices(c.Name)[0]
+			idx, maps[k] = append(idx, k), func(vals, out any) error { return nil }
+		}
+		if !r.CanRewrite(outputSchema(r.Schema(), idx, false), maps) {
+			t.Errorf("%s: CanRewrite = false", in)
+		}
+		r.Close()
 	}
 	files, err := filepath.Glob(filepath.Join(outs[false], "site=*", "day=*", "*.parquet"))
 	if err != nil || len(files) == 0 {
@@ -113,10 +143,17 @@ func TestRewriteAndRecordPathsAgree(t *testing.T) {
 	}
 	ma := readManifestT(t, filepath.Join(outs[false], "_manifest.json"))
 	mb := readManifestT(t, filepath.Join(outs[true], "_manifest.json"))
+	outside := uint64(0)
 	for j := range ma.Columns {
-		if ma.Columns[j].Stats != mb.Columns[j].Stats || ma.Columns[j].Params != mb.Columns[j].Params {
-			t.Errorf("column %s: statistics or parameters differ", ma.Columns[j].Name)
+		a, b := ma.Columns[j], mb.Columns[j]
+		if a.Stats != b.Stats || a.Params != b.Params || a.OutOfRange == nil || b.OutOfRange == nil || *a.OutOfRange != *b.OutOfRange {
+			t.Errorf("column %s: statistics, parameters or out-of-range counts differ: %+v %+v", a.Name, a.OutOfRange, b.OutOfRange)
+		} else {
+			outside += a.OutOfRange.Below + a.OutOfRange.Above
 		}
+	}
+	if outside == 0 {
+		t.Error("no value fell outside the fitted range; the counts were not compared")
 	}
 }
 
@@ -133,4 +170,37 @@ func readTable(t *testing.T, path string) arrow.Table {
 		t.Fatal(err)
 	}
 	return tbl
+}
+
+// TestRunRefusesInputChangedBetweenPasses: run's pass two does not hash
+// inputs again but checks each against pass one (size, rows, footer); a
+// file replaced after its statistics were computed stops the run with
+// ErrInputChanged naming it, and no manifest is written.
+func TestRunRefusesInputChangedBetweenPasses(t *testing.T) {
+	lake := t.TempDir()
+	writeDemoLake(t, lake)
+	victim := filepath.Join("site="+demoSites[2], "day="+demoDays[2], "part-0.parquet")
+	defer func(h func(string)) { hookFileWritten = h }(hookFileWritten)
+	replaced := false
+	hookFileWritten = func(rel string) {
+		if replaced {
+			return
+		}
+		replaced = true
+		rec := demoRecord(0, 0) // other rows, same schema
+		defer rec.Release()
+		_, err := arrowio.WriteParquetAtomic(context.Background(), filepath.Join(lake, victim), rec.Schema(), arrowio.WriteOptions{},
+			func(w *pqarrow.FileWriter) error { return w.Write(rec) })
+		if err != nil {
+			t.Error(err)
+		}
+	}
+	out := filepath.Join(t.TempDir(), "out")
+	err := Run(context.Background(), testConfig(t, lake, out, 1))
+	if !errors.Is(err, ErrInputChanged) || !strings.Contains(err.Error(), victim) {
+		t.Fatalf("Run: %v, want ErrInputChanged naming %s", err, victim)
+	}
+	if _, err := os.Stat(filepath.Join(out, "_manifest.json")); !os.IsNotExist(err) {
+		t.Errorf("manifest written after a failed run: %v", err)
+	}
 }

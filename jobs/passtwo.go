@@ -19,7 +19,8 @@ import (
 // batches (files with nested columns). That way each worker buffers one
 // compressed row group while writing it, so the cap (rather than the
 // input's row-group size) bounds pass two's memory. Flat files are
-// rewritten with the input's row groups, streamed column by column.
+// rewritten with the input's row groups, column by column, their pages
+// streamed out (dictionary-encoded columns hold one column chunk's pages).
 const outputRowGroupRows = 256 << 10
 
 // recordPathOnly makes pass two write every file through Arrow record
@@ -39,14 +40,20 @@ type written struct {
 
 // passTwo writes the scaled copy of every input of the plan's share;
 // results are in file order (zero for the files of other shards).
-// hashInputs asks it to hash inputs too (apply has no pass one).
-func passTwo(ctx context.Context, cfg *Config, p *plan, params []stats.Params, meta string, hashInputs bool) ([]written, error) {
+// With pass one's results (run), each input is checked against them
+// (size and footer) instead of being hashed again; without (apply, which
+// has no pass one), inputs are hashed on the way.
+func passTwo(ctx context.Context, cfg *Config, p *plan, params []stats.Params, meta string, known []fileResult) ([]written, error) {
 	results := make([]written, len(p.Files))
 	err := forEachFile(ctx, cfg.Workers, len(p.Files), func(ctx context.Context, i int) error {
 		if !p.mine(i) {
 			return nil
 		}
-		res, err := scaleFile(ctx, cfg, p, i, params, meta, hashInputs)
+		var k *fileResult
+		if known != nil {
+			k = &known[i]
+		}
+		res, err := scaleFile(ctx, cfg, p, i, params, meta, k)
 		if err != nil {
 			return fmt.Errorf("partition %s: %w", partitionName(p.Files[i]), err)
 		}
@@ -70,13 +77,21 @@ func outputSchema(in *arrow.Schema, idx []int, float32Out bool) *arrow.Schema {
 }
 
 // scaleFile streams one input file into its scaled output.
-func scaleFile(ctx context.Context, cfg *Config, p *plan, i int, params []stats.Params, meta string, hashInputs bool) (written, error) {
+func scaleFile(ctx context.Context, cfg *Config, p *plan, i int, params []stats.Params, meta string, known *fileResult) (written, error) {
 	f := p.Files[i]
-	r, err := arrowio.OpenContext(ctx, f.Abs, memory.DefaultAllocator)
+	open := arrowio.OpenContext
+	if known != nil {
+		open = arrowio.OpenUnhashed
+	}
+	r, err := open(ctx, f.Abs, memory.DefaultAllocator)
 	if err != nil {
 		return written{}, err
 	}
 	defer r.Close()
+	if known != nil && (r.Size() != known.Bytes || r.NumRows() != known.Rows || r.FooterChecksum() != known.Origin.Footer) {
+		return written{}, fmt.Errorf("%w: %s changed after its statistics were computed (now %d bytes, %d rows); run again",
+			ErrInputChanged, f.Rel, r.Size(), r.NumRows())
+	}
 	if r.NumRows() == 0 {
 		return written{}, fmt.Errorf("%w: %s has no rows", ErrEmptyPartition, f.Rel)
 	}
@@ -108,7 +123,7 @@ func scaleFile(ctx context.Context, cfg *Config, p *plan, i int, params []stats.
 	if out.Rows != r.NumRows() {
 		return written{}, fmt.Errorf("%s: wrote %d rows, read %d", f.Rel, out.Rows, r.NumRows())
 	}
-	if hashInputs {
+	if known == nil {
 		// Pass two read every column, so the hash needs almost no reads.
 		if res.In.Bytes, res.In.SHA256, err = r.Checksum(); err != nil {
 			return written{}, err

@@ -49,7 +49,7 @@ func Run(ctx context.Context, cfg Config) (err error) {
 		p.bounds = boundsOf(cols) // files outside the fit slice may fall outside
 	}
 	m := cfg.newManifest(manifests.KindDataset, cols)
-	outs, err := passTwo(ctx, &cfg, p, params, fileMeta(m), false)
+	outs, err := passTwo(ctx, &cfg, p, params, fileMeta(m), results)
 	if err != nil {
 		return err
 	}
@@ -228,7 +228,7 @@ func (p *plan) writeAndCommit(ctx context.Context, cfg *Config, params []stats.P
 	if err := prepareOutput(cfg); err != nil {
 		return err
 	}
-	outs, err := passTwo(ctx, cfg, p, params, fileMeta(m), true)
+	outs, err := passTwo(ctx, cfg, p, params, fileMeta(m), nil)
 	if err != nil {
 		return err
 	}

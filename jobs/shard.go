@@ -352,7 +352,7 @@ func ApplyShard(ctx context.Context, cfg Config, sh Shard) (err error) {
 	if err := openShardOutput(&cfg); err != nil {
 		return err
 	}
-	outs, err := passTwo(ctx, &cfg, p, params, fileMeta(m), true)
+	outs, err := passTwo(ctx, &cfg, p, params, fileMeta(m), nil)
 	if err != nil {
 		return err
 	}
