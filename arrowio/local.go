@@ -8,6 +8,7 @@ import (
 	"os"
 	"path/filepath"
 	"slices"
+	"strconv"
 	"strings"
 )
 
@@ -79,15 +80,18 @@ func (localStore) Open(_ context.Context, key string) (Object, error) {
 		f.Close()
 		return nil, pathError("open", key, errors.New("is a directory"))
 	}
-	return &localObject{File: f, size: st.Size()}, nil
+	return &localObject{File: f, size: st.Size(), mtime: st.ModTime().UnixNano()}, nil
 }
 
 type localObject struct {
 	*os.File
-	size int64
+	size  int64
+	mtime int64
 }
 
 func (o *localObject) Size() int64 { return o.size }
+
+func (o *localObject) Version() string { return strconv.FormatInt(o.mtime, 10) }
 
 func (localStore) Write(_ context.Context, key string, ifAbsent bool, write func(io.Writer) error) (int64, string, error) {
 	return writeAtomic(key, ifAbsent, write)

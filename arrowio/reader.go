@@ -40,16 +40,17 @@ const arrowSchemaKey = "ARROW:schema"
 // Reader streams one Parquet file. A Reader is not safe for concurrent use;
 // open one per goroutine.
 type Reader struct {
-	path   string
-	obj    Object
-	hasher *seqHasher
-	pr     *file.Reader
-	fr     *pqarrow.FileReader
-	schema *arrow.Schema
-	meta   map[string]string
-	footer string
-	size   int64
-	scan   scanBuffers
+	path    string
+	obj     Object
+	hasher  *seqHasher
+	pr      *file.Reader
+	fr      *pqarrow.FileReader
+	schema  *arrow.Schema
+	meta    map[string]string
+	footer  string
+	size    int64
+	version string
+	scan    scanBuffers
 }
 
 // Open opens a Parquet file (a path or location) and reads its footer.
@@ -95,7 +96,7 @@ func open(ctx context.Context, path string, mem memory.Allocator, hash bool) (*R
 		_ = obj.Close() // the open error is the one to report
 		return nil, pathError("open", path, err)
 	}
-	r.size = obj.Size()
+	r.size, r.version = obj.Size(), obj.Version()
 	if hs != nil {
 		r.hasher = hs
 		hs.start()
@@ -226,6 +227,11 @@ func (r *Reader) Schema() *arrow.Schema { return r.schema }
 
 // Size is the file's size in bytes.
 func (r *Reader) Size() int64 { return r.size }
+
+// Version identifies the version of the file that was opened (see
+// Object.Version); a later Open of the same file gives another value when
+// it was replaced or written to in between.
+func (r *Reader) Version() string { return r.version }
 
 // NumRows is the row count from the footer.
 func (r *Reader) NumRows() int64 { return r.pr.NumRows() }

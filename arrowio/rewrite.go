@@ -118,8 +118,9 @@ func (r *Reader) CanRewrite(schema *arrow.Schema, maps []ValueMap) bool {
 // values are replaced by maps[c] where that is not nil; the other columns
 // are copied value for value. CanRewrite must hold. Row groups follow the
 // input's (opts.RowGroupRows is not used): each is written column by
-// column with its pages streamed out, so memory does not grow with the row
-// group. The footer holds the serialized Arrow schema and opts.Metadata
+// column with its pages streamed out, so memory grows at most with one
+// column chunk (of a column that keeps dictionary encoding), not with the
+// row group. The footer holds the serialized Arrow schema and opts.Metadata
 // in sorted key order, as WriteParquetAtomic writes them. ctx is checked
 // between batches; a cancelled ctx gives context.Cause(ctx) unchanged.
 // An error from a map comes back as "write path: err".
@@ -378,6 +379,8 @@ func readChunk[T any](cr chunkReader[T], buf []T, defs []int16) (vals []T, lv []
 			}
 		}
 	}
+	// For a required column Parquet's reader counts rows by the values it
+	// decoded, so there this check is only a guard.
 	if nv != want {
 		return nil, nil, 0, fmt.Errorf("%w: %d values decoded for %d defined rows", errCorruptData, nv, want)
 	}

@@ -39,6 +39,8 @@ type s3Object struct {
 
 func (o *s3Object) Size() int64 { return o.size }
 
+func (o *s3Object) Version() string { return aws.ToString(o.etag) }
+
 // preferWholeChunks marks a remote object: the Parquet reader then reads
 // each column chunk in one ReadAt, that is one request.
 func (o *s3Object) preferWholeChunks() {}

@@ -799,3 +799,32 @@ func TestS3ReadCancelled(t *testing.T) {
 		t.Errorf("cancelled read returned after %s", d)
 	}
 }
+
+// TestObjectVersion: an object's Version changes when it is replaced, on
+// S3 (the ETag; here the same size, other bytes) and on local disk (the
+// modification time), and stays the same when it is only opened again.
+func TestObjectVersion(t *testing.T) {
+	s3st, _ := newTestS3(t)
+	local := t.TempDir()
+	for name, c := range map[string]struct {
+		st  Store
+		key string
+	}{"s3": {s3st, "v/obj"}, "local": {localStore{}, filepath.Join(local, "obj")}} {
+		version := func() string {
+			o, err := c.st.Open(context.Background(), c.key)
+			if err != nil {
+				t.Fatal(err)
+			}
+			defer o.Close()
+			return o.Version()
+		}
+		put(t, c.st, c.key, []byte("version one"))
+		a, again := version(), version()
+		time.Sleep(20 * time.Millisecond) // past the file system's timestamp granularity
+		put(t, c.st, c.key, []byte("version two"))
+		b := version()
+		if a == "" || a != again || a == b {
+			t.Errorf("%s: versions %q, %q after reopening, %q after replacing", name, a, again, b)
+		}
+	}
+}

@@ -64,6 +64,10 @@ type Object interface {
 	io.ReaderAt
 	io.Closer
 	Size() int64
+	// Version identifies the version opened, for noticing that an object
+	// was replaced between two reads: the ETag on S3, the modification
+	// time in nanoseconds on local disk.
+	Version() string
 }
 
 // wholeChunkReader is implemented by objects that are cheaper to read in a

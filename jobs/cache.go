@@ -79,7 +79,7 @@ const (
 type origin struct {
 	Source fileSource
 	Cache  cacheState
-	Footer string // footer checksum, when a cache is in use
+	Footer string // footer checksum (the cache key; run's pass two checks it)
 }
 
 // openCache returns the cache a command uses: dir when given, else

@@ -15,11 +15,12 @@ import (
 
 // fileResult is what pass one learns about one input file.
 type fileResult struct {
-	Rows   int64
-	Bytes  int64
-	SHA256 string
-	Accs   []*stats.Accumulator // one per selected column, plan order
-	Origin origin               // measured, cached or (not fitted) only described
+	Rows    int64
+	Bytes   int64
+	SHA256  string
+	Version string               // of the file pass one read (arrowio.Reader.Version)
+	Accs    []*stats.Accumulator // one per selected column, plan order
+	Origin  origin               // measured, cached or (not fitted) only described
 }
 
 // forEachFile runs task for every file on one pool of cfg.Workers
@@ -102,6 +103,7 @@ func measureFile(ctx context.Context, cfg *Config, p *plan, i int) (fileResult, 
 		return fileResult{}, err
 	}
 	res, done, err := p.reuse(cfg, i, r)
+	res.Version = r.Version()
 	if done || err != nil {
 		return res, err
 	}

@@ -9,6 +9,7 @@ import (
 	"slices"
 	"strings"
 	"testing"
+	"time"
 
 	"github.com/apache/arrow/go/v17/arrow"
 	"github.com/apache/arrow/go/v17/arrow/array"
@@ -173,34 +174,53 @@ func readTable(t *testing.T, path string) arrow.Table {
 }
 
 // TestRunRefusesInputChangedBetweenPasses: run's pass two does not hash
-// inputs again but checks each against pass one (size, rows, footer); a
-// file replaced after its statistics were computed stops the run with
+// inputs again but checks each against pass one (version, size, rows,
+// footer); a file replaced, or changed in place with its size and footer
+// kept, after its statistics were computed stops the run with
 // ErrInputChanged naming it, and no manifest is written.
 func TestRunRefusesInputChangedBetweenPasses(t *testing.T) {
-	lake := t.TempDir()
-	writeDemoLake(t, lake)
 	victim := filepath.Join("site="+demoSites[2], "day="+demoDays[2], "part-0.parquet")
-	defer func(h func(string)) { hookFileWritten = h }(hookFileWritten)
-	replaced := false
-	hookFileWritten = func(rel string) {
-		if replaced {
-			return
-		}
-		replaced = true
-		rec := demoRecord(0, 0) // other rows, same schema
-		defer rec.Release()
-		_, err := arrowio.WriteParquetAtomic(context.Background(), filepath.Join(lake, victim), rec.Schema(), arrowio.WriteOptions{},
-			func(w *pqarrow.FileWriter) error { return w.Write(rec) })
-		if err != nil {
-			t.Error(err)
-		}
-	}
-	out := filepath.Join(t.TempDir(), "out")
-	err := Run(context.Background(), testConfig(t, lake, out, 1))
-	if !errors.Is(err, ErrInputChanged) || !strings.Contains(err.Error(), victim) {
-		t.Fatalf("Run: %v, want ErrInputChanged naming %s", err, victim)
-	}
-	if _, err := os.Stat(filepath.Join(out, "_manifest.json")); !os.IsNotExist(err) {
-		t.Errorf("manifest written after a failed run: %v", err)
+	for name, change := range map[string]func(t *testing.T, path string){
+		"replaced": func(t *testing.T, path string) {
+			rec := demoRecord(0, 0) // other rows, same schema
+			defer rec.Release()
+			_, err := arrowio.WriteParquetAtomic(context.Background(), path, rec.Schema(), arrowio.WriteOptions{},
+				func(w *pqarrow.FileWriter) error { return w.Write(rec) })
+			if err != nil {
+				t.Error(err)
+			}
+		},
+		"one byte in place": func(t *testing.T, path string) {
+			time.Sleep(20 * time.Millisecond) // past the file system's timestamp granularity
+			f, err := os.OpenFile(path, os.O_WRONLY, 0)
+			if err != nil {
+				t.Fatal(err)
+			}
+			defer f.Close()
+			if _, err := f.WriteAt([]byte{0x5a}, 100); err != nil {
+				t.Error(err)
+			}
+		},
+	} {
+		t.Run(name, func(t *testing.T) {
+			lake := t.TempDir()
+			writeDemoLake(t, lake)
+			defer func(h func(string)) { hookFileWritten = h }(hookFileWritten)
+			changed := false
+			hookFileWritten = func(rel string) {
+				if !changed {
+					changed = true
+					change(t, filepath.Join(lake, victim))
+				}
+			}
+			out := filepath.Join(t.TempDir(), "out")
+			err := Run(context.Background(), testConfig(t, lake, out, 1))
+			if !errors.Is(err, ErrInputChanged) || !strings.Contains(err.Error(), victim) {
+				t.Fatalf("Run: %v, want ErrInputChanged naming %s", err, victim)
+			}
+			if _, err := os.Stat(filepath.Join(out, "_manifest.json")); !os.IsNotExist(err) {
+				t.Errorf("manifest written after a failed run: %v", err)
+			}
+		})
 	}
 }

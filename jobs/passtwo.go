@@ -41,7 +41,7 @@ type written struct {
 // passTwo writes the scaled copy of every input of the plan's share;
 // results are in file order (zero for the files of other shards).
 // With pass one's results (run), each input is checked against them
-// (size and footer) instead of being hashed again; without (apply, which
+// (version, size, rows and footer) instead of being hashed again; without (apply, which
 // has no pass one), inputs are hashed on the way.
 func passTwo(ctx context.Context, cfg *Config, p *plan, params []stats.Params, meta string, known []fileResult) ([]written, error) {
 	results := make([]written, len(p.Files))
@@ -88,7 +88,7 @@ func scaleFile(ctx context.Context, cfg *Config, p *plan, i int, params []stats.
 		return written{}, err
 	}
 	defer r.Close()
-	if known != nil && (r.Size() != known.Bytes || r.NumRows() != known.Rows || r.FooterChecksum() != known.Origin.Footer) {
+	if known != nil && (r.Version() != known.Version || r.Size() != known.Bytes || r.NumRows() != known.Rows || r.FooterChecksum() != known.Origin.Footer) {
 		return written{}, fmt.Errorf("%w: %s changed after its statistics were computed (now %d bytes, %d rows); run again",
 			ErrInputChanged, f.Rel, r.Size(), r.NumRows())
 	}
