@@ -79,11 +79,19 @@ func (c Compression) codec() (compress.Compression, error) {
 // single cost of pass two.
 const outputZstdLevel = 1
 
+// outputPageBytes is the data page size outputs are written with, a
+// quarter of Arrow's default (1 MiB). Each page is compressed on its own,
+// and a zstd encoder working through 256 KiB pages stays within the CPU's
+// caches: a full run of a quarter of the benchmark lake (make bench) took
+// 7-10% less CPU at 1 and 2 workers, for files 1.5% larger.
+const outputPageBytes = 256 << 10
+
 // writerProps builds deterministic writer properties for schema: the
-// chosen codec (zstd at outputZstdLevel), a constant created_by, the row-group
-// cap, and dictionary encoding off for float and double columns, whose
-// high-entropy values rarely repeat (a dictionary there costs CPU and is
-// usually abandoned for plain encoding once the dictionary page fills).
+// chosen codec (zstd at outputZstdLevel), a constant created_by, the
+// row-group cap, pages of outputPageBytes, and dictionary encoding off for
+// float and double columns, whose high-entropy values rarely repeat (a
+// dictionary there costs CPU and is usually abandoned for plain encoding
+// once the dictionary page fills).
 func writerProps(schema *arrow.Schema, opts WriteOptions, mem memory.Allocator) (*parquet.WriterProperties, pqarrow.ArrowWriterProperties, error) {
 	codec, err := opts.Compression.codec()
 	if err != nil {
@@ -100,6 +108,7 @@ func writerProps(schema *arrow.Schema, opts WriteOptions, mem memory.Allocator) 
 		parquet.WithCreatedBy(CreatedBy),
 		parquet.WithMaxRowGroupLength(rg),
 		parquet.WithDictionaryDefault(true),
+		parquet.WithDataPageSize(outputPageBytes),
 	}
 	if codec == compress.Codecs.Zstd {
 		base = append(base, parquet.WithCompressionLevel(outputZstdLevel))
