@@ -40,17 +40,15 @@ const arrowSchemaKey = "ARROW:schema"
 // Reader streams one Parquet file. A Reader is not safe for concurrent use;
 // open one per goroutine.
 type Reader struct {
-	path    string
-	obj     Object
-	hasher  *seqHasher
-	pr      *file.Reader
-	fr      *pqarrow.FileReader
-	schema  *arrow.Schema
-	meta    map[string]string
-	footer  string
-	size    int64
-	version string
-	scan    scanBuffers
+	path   string
+	obj    Object
+	hasher *seqHasher
+	pr     *file.Reader
+	fr     *pqarrow.FileReader
+	schema *arrow.Schema
+	meta   map[string]string
+	footer string
+	scan   scanBuffers
 }
 
 // Open opens a Parquet file (a path or location) and reads its footer.
@@ -96,7 +94,6 @@ func open(ctx context.Context, path string, mem memory.Allocator, hash bool) (*R
 		_ = obj.Close() // the open error is the one to report
 		return nil, pathError("open", path, err)
 	}
-	r.size, r.version = obj.Size(), obj.Version()
 	if hs != nil {
 		r.hasher = hs
 		hs.start()
@@ -226,12 +223,12 @@ func (r *Reader) Path() string { return r.path }
 func (r *Reader) Schema() *arrow.Schema { return r.schema }
 
 // Size is the file's size in bytes.
-func (r *Reader) Size() int64 { return r.size }
+func (r *Reader) Size() int64 { return r.obj.Size() }
 
 // Version identifies the version of the file that was opened (see
 // Object.Version); a later Open of the same file gives another value when
 // it was replaced or written to in between.
-func (r *Reader) Version() string { return r.version }
+func (r *Reader) Version() string { return r.obj.Version() }
 
 // NumRows is the row count from the footer.
 func (r *Reader) NumRows() int64 { return r.pr.NumRows() }

@@ -3,6 +3,7 @@ package arrowio
 import (
 	"context"
 	"encoding/base64"
+	"errors"
 	"fmt"
 	"slices"
 
@@ -49,8 +50,8 @@ type rewritePlan struct {
 func planRewrite(r *Reader, out *arrow.Schema, maps []ValueMap, opts WriteOptions, mem memory.Allocator) (*rewritePlan, error) {
 	in := r.pr.MetaData().Schema
 	if len(maps) != len(r.fr.Manifest.Fields) || out.NumFields() != len(maps) || in.NumColumns() != len(maps) {
-		return nil, fmt.Errorf("rewrite: %d maps, %d output fields, %d input columns, %d input leaves",
-			len(maps), out.NumFields(), len(r.fr.Manifest.Fields), in.NumColumns())
+		return nil, fmt.Errorf("%w: %d maps, %d output fields, %d input columns, %d input leaves",
+			ErrNotRewritable, len(maps), out.NumFields(), len(r.fr.Manifest.Fields), in.NumColumns())
 	}
 	props, arrowProps, err := writerProps(out, opts, mem)
 	if err != nil {
@@ -61,32 +62,32 @@ func planRewrite(r *Reader, out *arrow.Schema, maps []ValueMap, opts WriteOption
 		return nil, err
 	}
 	if pq.NumColumns() != len(maps) {
-		return nil, fmt.Errorf("rewrite: output schema has %d leaf columns, want %d", pq.NumColumns(), len(maps))
+		return nil, fmt.Errorf("%w: output schema has %d leaf columns, want %d", ErrNotRewritable, pq.NumColumns(), len(maps))
 	}
 	for c, m := range maps {
 		f := &r.fr.Manifest.Fields[c]
 		if !f.IsLeaf() || f.ColIndex != c {
-			return nil, fmt.Errorf("rewrite: column %s is nested", f.Field.Name)
+			return nil, fmt.Errorf("%w: column %s is nested", ErrNotRewritable, f.Field.Name)
 		}
 		if name := out.Field(c).Name; name != f.Field.Name {
-			return nil, fmt.Errorf("rewrite: output column %d is %s, input column %s", c, name, f.Field.Name)
+			return nil, fmt.Errorf("%w: output column %d is %s, input column %s", ErrNotRewritable, c, name, f.Field.Name)
 		}
 		src, dst := in.Column(c), pq.Column(c)
 		if src.MaxRepetitionLevel() != 0 || src.MaxDefinitionLevel() > 1 || dst.MaxRepetitionLevel() != 0 {
-			return nil, fmt.Errorf("rewrite: column %s is nested or repeated", f.Field.Name)
+			return nil, fmt.Errorf("%w: column %s is nested or repeated", ErrNotRewritable, f.Field.Name)
 		}
 		if m != nil {
 			pt := dst.PhysicalType()
 			if !r.CanScan(c) || dst.MaxDefinitionLevel() != 1 || (pt != parquet.Types.Double && pt != parquet.Types.Float) {
-				return nil, fmt.Errorf("rewrite: column %s cannot be mapped to %s", f.Field.Name, out.Field(c).Type)
+				return nil, fmt.Errorf("%w: column %s cannot be mapped to %s", ErrNotRewritable, f.Field.Name, out.Field(c).Type)
 			}
 			continue
 		}
 		pt := src.PhysicalType()
 		if pt != dst.PhysicalType() || (pt == parquet.Types.FixedLenByteArray && src.TypeLength() != dst.TypeLength()) ||
 			src.MaxDefinitionLevel() != dst.MaxDefinitionLevel() || !src.LogicalType().Equals(dst.LogicalType()) {
-			return nil, fmt.Errorf("rewrite: column %s would be written as %s (%s, length %d, max definition level %d), read as %s (%s, %d, %d)",
-				f.Field.Name, dst.PhysicalType(), dst.LogicalType(), dst.TypeLength(), dst.MaxDefinitionLevel(),
+			return nil, fmt.Errorf("%w: column %s would be written as %s (%s, length %d, max definition level %d), read as %s (%s, %d, %d)",
+				ErrNotRewritable, f.Field.Name, dst.PhysicalType(), dst.LogicalType(), dst.TypeLength(), dst.MaxDefinitionLevel(),
 				pt, src.LogicalType(), src.TypeLength(), src.MaxDefinitionLevel())
 		}
 	}
@@ -105,9 +106,16 @@ func planRewrite(r *Reader, out *arrow.Schema, maps []ValueMap, opts WriteOption
 	return &rewritePlan{pq: pq, props: props, meta: meta}, nil
 }
 
+// ErrNotRewritable is what RewriteParquetAtomic returns, before writing
+// anything, for a file it cannot copy column chunk by column chunk (nested
+// or repeated columns, a mapped column that cannot be scanned, a copied
+// column whose Parquet type would change); copy such a file through
+// Records and WriteParquetAtomic instead.
+var ErrNotRewritable = errors.New("cannot be rewritten column chunk by column chunk")
+
 // CanRewrite reports whether RewriteParquetAtomic can write r's file into
-// schema with maps; when it cannot, copy through Records and
-// WriteParquetAtomic instead.
+// schema with maps, that is whether it would not fail with
+// ErrNotRewritable.
 func (r *Reader) CanRewrite(schema *arrow.Schema, maps []ValueMap) bool {
 	_, err := planRewrite(r, schema, maps, WriteOptions{}, memory.DefaultAllocator)
 	return err == nil
@@ -116,7 +124,8 @@ func (r *Reader) CanRewrite(schema *arrow.Schema, maps []ValueMap) bool {
 // RewriteParquetAtomic writes at path, atomically as WriteParquetAtomic
 // does, a copy of r's file with the Arrow schema out, in which column c's
 // values are replaced by maps[c] where that is not nil; the other columns
-// are copied value for value. CanRewrite must hold. Row groups follow the
+// are copied value for value; a file it cannot take gives an error
+// wrapping ErrNotRewritable and writes nothing. Row groups follow the
 // input's (opts.RowGroupRows is not used): each is written column by
 // column with its pages streamed out, so memory grows at most with one
 // column chunk (of a column that keeps dictionary encoding), not with the

@@ -159,8 +159,8 @@ func TestRewriteRefuses(t *testing.T) {
 		}
 		out := tempPath(t, "out.parquet")
 		_, err := RewriteParquetAtomic(context.Background(), out, r, c.schema, c.maps, WriteOptions{})
-		if err == nil || !strings.Contains(err.Error(), out) {
-			t.Errorf("%s: %v, want an error naming %s", name, err, out)
+		if !errors.Is(err, ErrNotRewritable) || !strings.Contains(err.Error(), out) {
+			t.Errorf("%s: %v, want ErrNotRewritable naming %s", name, err, out)
 		}
 		if _, serr := os.Stat(out); !os.IsNotExist(serr) {
 			t.Errorf("%s: output exists", name)

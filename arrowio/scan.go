@@ -84,35 +84,31 @@ type scanBuffers struct {
 func (b *scanBuffers) read(cr file.ColumnChunkReader, n int, defs []int16, unsigned bool) (vals any, total int64, nv int, err error) {
 	switch c := cr.(type) {
 	case *file.Float64ColumnChunkReader:
-		b.f64 = grow(b.f64, n)
-		var v []float64
-		v, _, total, err = readChunk(c, b.f64, defs)
-		vals, nv = v, len(v)
+		return readInto(c, &b.f64, n, defs)
 	case *file.Float32ColumnChunkReader:
-		b.f32 = grow(b.f32, n)
-		var v []float32
-		v, _, total, err = readChunk(c, b.f32, defs)
-		vals, nv = v, len(v)
+		return readInto(c, &b.f32, n, defs)
 	case *file.Int32ColumnChunkReader:
-		b.i32 = grow(b.i32, n)
-		var v []int32
-		v, _, total, err = readChunk(c, b.i32, defs)
-		vals, nv = v, len(v)
-		if unsigned { // the same bits, read as unsigned
-			vals = unsafe.Slice((*uint32)(unsafe.Pointer(unsafe.SliceData(v))), nv)
+		vals, total, nv, err = readInto(c, &b.i32, n, defs)
+		if unsigned && err == nil { // the same bits, read as unsigned
+			vals = unsafe.Slice((*uint32)(unsafe.Pointer(unsafe.SliceData(b.i32))), nv)
 		}
+		return vals, total, nv, err
 	case *file.Int64ColumnChunkReader:
-		b.i64 = grow(b.i64, n)
-		var v []int64
-		v, _, total, err = readChunk(c, b.i64, defs)
-		vals, nv = v, len(v)
-		if unsigned {
-			vals = unsafe.Slice((*uint64)(unsafe.Pointer(unsafe.SliceData(v))), nv)
+		vals, total, nv, err = readInto(c, &b.i64, n, defs)
+		if unsigned && err == nil {
+			vals = unsafe.Slice((*uint64)(unsafe.Pointer(unsafe.SliceData(b.i64))), nv)
 		}
-	default:
-		err = fmt.Errorf("unexpected column reader %T", cr)
+		return vals, total, nv, err
 	}
-	return vals, total, nv, err
+	return nil, 0, 0, fmt.Errorf("unexpected column reader %T", cr)
+}
+
+// readInto is readChunk into *buf, grown to n values, with the values
+// handed out as an any.
+func readInto[T any](cr chunkReader[T], buf *[]T, n int, defs []int16) (any, int64, int, error) {
+	*buf = grow(*buf, n)
+	v, _, total, err := readChunk(cr, *buf, defs)
+	return v, total, len(v), err
 }
 
 func grow[T any](s []T, n int) []T {

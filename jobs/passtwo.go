@@ -2,6 +2,7 @@ package jobs
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"math"
 
@@ -147,13 +148,16 @@ func writeScaled(ctx context.Context, cfg *Config, p *plan, r *arrowio.Reader, r
 			maps[k] = func(vals, out any) error { return mapVals(j, vals, out) }
 		}
 	}
-	if !recordPathOnly && r.CanRewrite(schema, maps) {
-		opts.BatchRows = cfg.BatchRows
-		out, err := arrowio.RewriteParquetAtomic(ctx, dst, r, schema, maps, opts)
-		if err != nil && err != context.Cause(ctx) {
-			err = fmt.Errorf("%s: %w", rel, err)
+	if !recordPathOnly {
+		ropts := opts
+		ropts.BatchRows = cfg.BatchRows
+		out, err := arrowio.RewriteParquetAtomic(ctx, dst, r, schema, maps, ropts)
+		if !errors.Is(err, arrowio.ErrNotRewritable) {
+			if err != nil && err != context.Cause(ctx) {
+				err = fmt.Errorf("%s: %w", rel, err)
+			}
+			return out, outside, err
 		}
-		return out, outside, err
 	}
 	mapCol, outside := p.columnMapper(cfg, params)
 	out, err := arrowio.WriteParquetAtomic(ctx, dst, schema, opts, func(w *pqarrow.FileWriter) error {

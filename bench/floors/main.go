@@ -229,10 +229,8 @@ func copyFile(src, dst string, defaultWriter bool) (rows, bytes int64, err error
 		}
 		defer r.Close()
 		maps := make([]arrowio.ValueMap, r.Schema().NumFields())
-		var wr arrowio.Written
-		if r.CanRewrite(r.Schema(), maps) {
-			wr, err = arrowio.RewriteParquetAtomic(context.Background(), dst, r, r.Schema(), maps, opts)
-		} else {
+		wr, err := arrowio.RewriteParquetAtomic(context.Background(), dst, r, r.Schema(), maps, opts)
+		if errors.Is(err, arrowio.ErrNotRewritable) {
 			wr, err = arrowio.WriteParquetAtomic(context.Background(), dst, schema, opts, fill)
 		}
 		return wr.Rows, wr.Bytes, err
