@@ -9,6 +9,8 @@ import (
 	"os"
 	"path/filepath"
 	"strings"
+
+	"golang.org/x/sync/errgroup"
 )
 
 // tempFile is the part of *os.File the atomic writer uses.
@@ -134,28 +136,62 @@ func writeFile(path string, mode writeMode, write func(io.Writer) error) error {
 // ifAbsent the temporary file is hard-linked to path instead of renamed
 // over it, which fails (wrapping fs.ErrExist) when path exists.
 func writeAtomic(path string, ifAbsent bool, write func(io.Writer) error) (n int64, sum string, err error) {
+	p, n, sum, err := writeTemp(path, write)
+	if err != nil {
+		return 0, "", err
+	}
+	if err := p.commit(ifAbsent); err != nil {
+		return 0, "", err
+	}
+	return n, sum, nil
+}
+
+// writeDeferred is writeAtomic (replacing, not ifAbsent) that leaves
+// putting the file in place to c; then, if not nil, runs with the byte
+// count after it is.
+func writeDeferred(path string, c *Commits, write func(io.Writer) error, then func(n int64)) (int64, string, error) {
+	p, n, sum, err := writeTemp(path, write)
+	if err != nil {
+		return 0, "", err
+	}
+	c.add(p, func() {
+		if then != nil {
+			then(n)
+		}
+	})
+	return n, sum, nil
+}
+
+// pending is a temporary file, written, flushed and given its final
+// permissions, that is not yet in place.
+type pending struct {
+	f         tempFile
+	tmp, path string
+	dir       string
+}
+
+// writeTemp writes the temporary file of path: everything of an atomic
+// write but the commit. On error (or a panic in write) the temporary
+// file is removed.
+func writeTemp(path string, write func(io.Writer) error) (*pending, int64, string, error) {
 	dir, name := filepath.Split(path)
 	if dir == "" {
 		dir = "."
 	}
 	if err := os.MkdirAll(dir, 0o755); err != nil {
-		return 0, "", err
+		return nil, 0, "", err
 	}
 	f, err := createTemp(dir, tempPattern(name))
 	if err != nil {
-		return 0, "", pathError("create", path, bareErr(err))
+		return nil, 0, "", pathError("create", path, bareErr(err))
 	}
-	tmp := f.Name()
-	closed, committed := false, false
+	p := &pending{f: f, tmp: f.Name(), path: path, dir: dir}
+	done := false
 	// Deferred so that a panic in write also removes the temporary file.
 	defer func() {
-		if committed {
-			return
+		if !done {
+			p.abandon()
 		}
-		if !closed {
-			_ = f.Close() // cleanup after an earlier error, which is the one returned
-		}
-		os.Remove(tmp)
 	}()
 
 	bw := bufio.NewWriterSize(f, writeBufferSize)
@@ -164,50 +200,106 @@ func writeAtomic(path string, ifAbsent bool, write func(io.Writer) error) (n int
 	// A failed write to the file is the root cause of whatever write then
 	// reports (the Parquet writer's own message does not say which file).
 	if tw.err != nil {
-		return 0, "", pathError("write", path, bareErr(tw.err))
+		return nil, 0, "", pathError("write", path, bareErr(tw.err))
 	}
 	if err != nil {
-		return 0, "", err
+		return nil, 0, "", err
 	}
 	if err := bw.Flush(); err != nil {
-		return 0, "", pathError("write", path, bareErr(err))
+		return nil, 0, "", pathError("write", path, bareErr(err))
 	}
 	if err := f.Chmod(outputMode); err != nil {
-		return 0, "", pathError("chmod", path, bareErr(err))
+		return nil, 0, "", pathError("chmod", path, bareErr(err))
 	}
-	if err := f.Sync(); err != nil {
-		return 0, "", pathError("sync", path, bareErr(err))
+	done = true
+	return p, tw.n, tw.sum(), nil
+}
+
+// abandon closes and removes the temporary file, after an earlier error,
+// which is the one returned.
+func (p *pending) abandon() {
+	_ = p.f.Close()
+	os.Remove(p.tmp)
+}
+
+// commit syncs and closes the temporary file, puts it in place (rename,
+// or with ifAbsent a hard link) and syncs the folder. On error nothing new
+// is at path (see WriteFileAtomic for the one exception).
+func (p *pending) commit(ifAbsent bool) error {
+	path := p.path
+	if err := p.f.Sync(); err != nil {
+		p.abandon()
+		return pathError("sync", path, bareErr(err))
 	}
-	closed = true
-	if err := f.Close(); err != nil {
-		return 0, "", pathError("close", path, bareErr(err))
+	if err := p.f.Close(); err != nil {
+		os.Remove(p.tmp)
+		return pathError("close", path, bareErr(err))
 	}
 	if ifAbsent {
-		if err := link(tmp, path); err != nil {
+		if err := link(p.tmp, path); err != nil {
+			os.Remove(p.tmp)
 			err = bareErr(err)
 			if linkUnsupported(err) {
 				err = &classified{ErrNoConditionalCreate, fmt.Errorf("hard links not supported here: %w", err)}
 			}
-			return 0, "", pathError("create", path, err)
+			return pathError("create", path, err)
 		}
-		committed = true
 		// The name is linked; the temporary one is now only a second name.
-		os.Remove(tmp)
-	} else {
-		if err := rename(tmp, path); err != nil {
-			return 0, "", pathError("rename", path, bareErr(err))
-		}
-		committed = true
+		os.Remove(p.tmp)
+	} else if err := rename(p.tmp, path); err != nil {
+		os.Remove(p.tmp)
+		return pathError("rename", path, bareErr(err))
 	}
 	// Without the folder sync the rename may not survive a crash. Keep the
 	// promise that an error leaves nothing at path: a caller that treats
 	// this file as a commit point must not find it after a failure.
-	if err := syncDir(dir); err != nil {
+	if err := syncDir(p.dir); err != nil {
 		os.Remove(path)
-		return 0, "", pathError("sync dir", path, err)
+		return pathError("sync dir", path, err)
 	}
-	return tw.n, tw.sum(), nil
+	return nil
 }
+
+// Commits lets local atomic writes return before their files are in
+// place. A write given a Commits (WriteOptions.Commits) writes, flushes
+// and hashes its temporary file as usual; the fsync, rename and folder
+// sync that put the file in place then run on another goroutine, so the
+// caller can go on with its next file instead of waiting for the disk.
+// At most limit files wait at a time; a write that would make one more
+// waits for a slot. Writes to an object store are not deferred: their
+// upload is their commit.
+//
+// A deferred file is in place, whole, only once Wait has returned nil;
+// until then it may be missing, and a failed commit leaves nothing at its
+// path, as a failed atomic write does. Call Wait exactly once, after the
+// last write, on error paths too, so that no commit runs on after the
+// caller returns.
+type Commits struct {
+	g errgroup.Group
+}
+
+// NewCommits returns a Commits running at most limit commits at a time
+// (at least 1).
+func NewCommits(limit int) *Commits {
+	c := &Commits{}
+	c.g.SetLimit(max(limit, 1))
+	return c
+}
+
+func (c *Commits) add(p *pending, then func()) {
+	c.g.Go(func() error {
+		if err := p.commit(false); err != nil {
+			return err
+		}
+		if then != nil {
+			then()
+		}
+		return nil
+	})
+}
+
+// Wait waits for every commit handed over and returns the first error.
+func (c *Commits) Wait() error { return c.g.Wait() }
 
 // bareErr strips the *fs.PathError or *os.LinkError wrapper that package os
 // puts around errors on the temporary file, whose name means nothing to

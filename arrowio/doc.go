@@ -18,8 +18,8 @@
 // Parquet files
 // and JSON documents atomically (on local disk: temporary name
 // ".<name>.tmp-*" in the destination folder, fsync, rename, fsync of the
-// folder; on S3: one upload, multipart above a threshold, that appears
-// whole or not at all), creates commit points only if absent (CreateFile:
+// folder, optionally left to a background Commits; on S3: one upload,
+// multipart above a threshold, that appears whole or not at all), creates commit points only if absent (CreateFile:
 // link(2) on local disk, If-None-Match on S3) and checks that a store
 // honours that (CheckConditionalCreate), reads footers back for
 // verification, removes temporary files left by interrupted runs and

@@ -89,12 +89,12 @@ func assertNothingLeft(t *testing.T, dir string) {
 	}
 }
 
-// bigFloatWrite writes enough float64 data for many writes to reach the
-// file, so failures land inside the Parquet writer's page flushes and
-// inside its footer.
-func bigFloatWrite(ctx context.Context, mem memory.Allocator, path string) (Written, error) {
-	sc := arrow.NewSchema([]arrow.Field{{Name: "v", Type: arrow.PrimitiveTypes.Float64}}, nil)
-	return WriteParquetAtomic(ctx, path, sc, WriteOptions{Compression: None, RowGroupRows: 100_000, Mem: mem, Metadata: map[string]string{"k": strings.Repeat("m", 5000)}}, func(fw *pqarrow.FileWriter) error {
+// bigFloatSchema is the one-column schema of fillBigFloat.
+var bigFloatSchema = arrow.NewSchema([]arrow.Field{{Name: "v", Type: arrow.PrimitiveTypes.Float64}}, nil)
+
+// fillBigFloat writes 400,000 float64 values in four batches.
+func fillBigFloat(mem memory.Allocator) func(fw *pqarrow.FileWriter) error {
+	return func(fw *pqarrow.FileWriter) error {
 		b := array.NewFloat64Builder(mem)
 		defer b.Release()
 		for batch := 0; batch < 4; batch++ {
@@ -102,7 +102,7 @@ func bigFloatWrite(ctx context.Context, mem memory.Allocator, path string) (Writ
 				b.Append(float64(batch*100_000+i) * 1.000001)
 			}
 			arr := b.NewArray()
-			rec := array.NewRecord(sc, []arrow.Array{arr}, int64(arr.Len()))
+			rec := array.NewRecord(bigFloatSchema, []arrow.Array{arr}, int64(arr.Len()))
 			arr.Release()
 			err := fw.Write(rec)
 			rec.Release()
@@ -111,7 +111,15 @@ func bigFloatWrite(ctx context.Context, mem memory.Allocator, path string) (Writ
 			}
 		}
 		return nil
-	})
+	}
+}
+
+// bigFloatWrite writes enough float64 data for many writes to reach the
+// file, so failures land inside the Parquet writer's page flushes and
+// inside its footer.
+func bigFloatWrite(ctx context.Context, mem memory.Allocator, path string) (Written, error) {
+	opts := WriteOptions{Compression: None, RowGroupRows: 100_000, Mem: mem, Metadata: map[string]string{"k": strings.Repeat("m", 5000)}}
+	return WriteParquetAtomic(ctx, path, bigFloatSchema, opts, fillBigFloat(mem))
 }
 
 // TestWriteParquetFailures fails each file write in turn, then the sync,

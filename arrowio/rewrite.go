@@ -151,7 +151,7 @@ func RewriteParquetAtomic(ctx context.Context, path string, r *Reader, out *arro
 	if err != nil {
 		return Written{}, pathError("write", path, err)
 	}
-	return writeParquetFile(ctx, path, func(sink *stickyWriter) (int64, error) {
+	return writeParquetFile(ctx, path, opts.Commits, func(sink *stickyWriter) (int64, error) {
 		var fw *file.Writer
 		return sinkPanics(sink, func() { closeWriterQuietly(fw) }, func() (int64, error) {
 			fw = file.NewParquetWriter(sink, plan.pq.Root(), file.WithWriterProps(plan.props), file.WithWriteMetadata(plan.meta))

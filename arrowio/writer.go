@@ -44,6 +44,10 @@ type WriteOptions struct {
 	// BatchRows is how many rows RewriteParquetAtomic moves at a time;
 	// 0 means DefaultBatchRows.
 	BatchRows int64
+	// Commits, when set, puts local files in place in the background:
+	// the write returns once the file is written and hashed, and the file
+	// is in place once Commits.Wait has returned nil.
+	Commits *Commits
 }
 
 func (o WriteOptions) allocator() memory.Allocator {
@@ -155,34 +159,46 @@ func WriteParquetAtomic(ctx context.Context, path string, schema *arrow.Schema, 
 	if err != nil {
 		return Written{}, pathError("write", path, err)
 	}
-	return writeParquetFile(ctx, path, func(sink *stickyWriter) (int64, error) {
+	return writeParquetFile(ctx, path, opts.Commits, func(sink *stickyWriter) (int64, error) {
 		return writeParquet(ctx, sink, schema, props, arrowProps, keys, opts.Metadata, fill)
 	})
 }
 
 // writeParquetFile runs write over the temporary file (or object) of an
-// atomic write of path and commits it, with the file's size and SHA-256.
+// atomic write of path and commits it, or hands a local file to commits
+// when not nil; it returns the file's size and SHA-256.
 // write returns the rows written; its errors other than context.Cause(ctx)
 // come back as "write path: err".
-func writeParquetFile(ctx context.Context, path string, write func(sink *stickyWriter) (int64, error)) (Written, error) {
+func writeParquetFile(ctx context.Context, path string, commits *Commits, write func(sink *stickyWriter) (int64, error)) (Written, error) {
 	st, key, err := Locate(path)
 	if err != nil {
 		return Written{}, err
 	}
 	var rows int64
-	n, sum, err := st.Write(ctx, key, false, func(w io.Writer) error {
+	fill := func(w io.Writer) error {
 		r, err := write(&stickyWriter{w: w})
 		if err == nil || err == context.Cause(ctx) {
 			rows = r
 			return err
 		}
 		return pathError("write", path, err)
-	})
+	}
+	var n int64
+	var sum string
+	if _, local := st.(localStore); local && commits != nil {
+		var check func(int64)
+		if invariants.Enabled {
+			check = func(n int64) { checkWritten(st, key, path, rows, n) }
+		}
+		n, sum, err = writeDeferred(key, commits, fill, check)
+	} else {
+		n, sum, err = st.Write(ctx, key, false, fill)
+		if err == nil && invariants.Enabled {
+			checkWritten(st, key, path, rows, n)
+		}
+	}
 	if err != nil {
 		return Written{}, err
-	}
-	if invariants.Enabled {
-		checkWritten(st, key, path, rows, n)
 	}
 	return Written{Rows: rows, Bytes: n, SHA256: sum}, nil
 }

@@ -9,7 +9,6 @@ import (
 	"os"
 	"path/filepath"
 	"strings"
-	"sync"
 	"testing"
 
 	"github.com/lakescale/lakescale/arrowio"
@@ -181,16 +180,18 @@ func TestCommitChecksFooterParameters(t *testing.T) {
 		t.Fatal(err)
 	}
 	out := filepath.Join(tmp, "out")
-	defer func(h func(string)) { hookFileWritten = h }(hookFileWritten)
-	var once sync.Once
-	hookFileWritten = func(rel string) {
-		once.Do(func() {
-			b, err := os.ReadFile(filepath.Join(other, rel))
-			if err != nil {
-				t.Error(err)
-			}
-			writeText(t, filepath.Join(out, rel), string(b))
-		})
+	defer func(h func()) { hookOutputsInPlace = h }(hookOutputsInPlace)
+	hookOutputsInPlace = func() {
+		files, err := arrowio.Discover(other)
+		if err != nil || len(files) == 0 {
+			t.Errorf("outputs of the other run: %v, %v", files, err)
+			return
+		}
+		b, err := os.ReadFile(files[0].Abs)
+		if err != nil {
+			t.Error(err)
+		}
+		writeText(t, filepath.Join(out, filepath.FromSlash(files[0].Rel)), string(b))
 	}
 	err = Run(context.Background(), testConfig(t, lake, out, 1))
 	if err == nil || !strings.Contains(err.Error(), "parameters in its footer") {

@@ -17,7 +17,8 @@
 // lakescale's writer settings (zstd level 1 with raw blocks for pages zstd
 // cannot shrink, dictionary encoding off for float columns, encoders
 // reused, a constant created_by, row groups as the input's) and the atomic
-// write (SHA-256 while writing, fsync, rename). That makes the ratio "pass
+// write (SHA-256 while writing; fsync and rename in the background,
+// arrowio.Commits, as pass two does). That makes the ratio "pass
 // two / write floor" measure what scaling and lakescale's orchestration add
 // to a copy, and nothing the writer settings change. (Integer columns keep
 // dictionary encoding in a copy; pass two writes them scaled, as floats
@@ -77,6 +78,7 @@ func main() {
 	}
 	var rows, bytes int64
 	var mu sync.Mutex
+	commits := arrowio.NewCommits(*workers)
 	err = forEach(*workers, len(files), func(i int) error {
 		var n, b int64
 		var err error
@@ -84,7 +86,7 @@ func main() {
 			n, err = readFile(files[i].Abs, cols)
 		} else {
 			dst := filepath.Join(*output, filepath.FromSlash(files[i].Rel))
-			n, b, err = copyFile(files[i].Abs, dst, *defaultWriter)
+			n, b, err = copyFile(files[i].Abs, dst, *defaultWriter, commits)
 		}
 		if err != nil {
 			return fmt.Errorf("%s: %w", files[i].Rel, err)
@@ -94,6 +96,9 @@ func main() {
 		mu.Unlock()
 		return nil
 	})
+	if cerr := commits.Wait(); err == nil {
+		err = cerr
+	}
 	if err != nil {
 		fmt.Fprintln(os.Stderr, "floors:", err)
 		os.Exit(1)
@@ -183,7 +188,7 @@ func arrowRecord(schema *arrow.Schema, rec arrow.Record) arrow.Record {
 
 // copyFile re-writes every row group of src, unchanged, as one row group
 // of dst.
-func copyFile(src, dst string, defaultWriter bool) (rows, bytes int64, err error) {
+func copyFile(src, dst string, defaultWriter bool, commits *arrowio.Commits) (rows, bytes int64, err error) {
 	pr, fr, err := openReader(src)
 	if err != nil {
 		return 0, 0, err
@@ -222,7 +227,7 @@ func copyFile(src, dst string, defaultWriter bool) (rows, bytes int64, err error
 	if !defaultWriter {
 		// lakescale's writer: the column chunk rewrite pass two uses for
 		// flat files, or record batches through WriteParquetAtomic.
-		opts := arrowio.WriteOptions{Compression: arrowio.Zstd}
+		opts := arrowio.WriteOptions{Compression: arrowio.Zstd, Commits: commits}
 		r, err := arrowio.Open(src, memory.DefaultAllocator)
 		if err != nil {
 			return 0, 0, err
