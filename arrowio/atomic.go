@@ -2,6 +2,7 @@ package arrowio
 
 import (
 	"bufio"
+	"context"
 	"errors"
 	"fmt"
 	"io"
@@ -140,7 +141,7 @@ func writeAtomic(path string, ifAbsent bool, write func(io.Writer) error) (n int
 	if err != nil {
 		return 0, "", err
 	}
-	if err := p.commit(ifAbsent); err != nil {
+	if err := p.commit(background, ifAbsent); err != nil {
 		return 0, "", err
 	}
 	return n, sum, nil
@@ -224,9 +225,21 @@ func (p *pending) abandon() {
 
 // commit syncs and closes the temporary file, puts it in place (rename,
 // or with ifAbsent a hard link) and syncs the folder. On error nothing new
-// is at path (see WriteFileAtomic for the one exception).
-func (p *pending) commit(ifAbsent bool) error {
+// is at path (see WriteFileAtomic for the one exception). When stop is
+// done before the rename, the file is abandoned and commit returns
+// context.Cause(stop).
+func (p *pending) commit(stop context.Context, ifAbsent bool) (err error) {
 	path := p.path
+	placed := false
+	// A panic (in a test seam) must not leave the temporary file behind.
+	defer func() {
+		if r := recover(); r != nil {
+			if !placed {
+				p.abandon()
+			}
+			panic(r)
+		}
+	}()
 	if err := p.f.Sync(); err != nil {
 		p.abandon()
 		return pathError("sync", path, bareErr(err))
@@ -234,6 +247,10 @@ func (p *pending) commit(ifAbsent bool) error {
 	if err := p.f.Close(); err != nil {
 		os.Remove(p.tmp)
 		return pathError("close", path, bareErr(err))
+	}
+	if stop.Err() != nil {
+		os.Remove(p.tmp)
+		return context.Cause(stop)
 	}
 	if ifAbsent {
 		if err := link(p.tmp, path); err != nil {
@@ -244,11 +261,15 @@ func (p *pending) commit(ifAbsent bool) error {
 			}
 			return pathError("create", path, err)
 		}
+		placed = true
 		// The name is linked; the temporary one is now only a second name.
 		os.Remove(p.tmp)
-	} else if err := rename(p.tmp, path); err != nil {
-		os.Remove(p.tmp)
-		return pathError("rename", path, bareErr(err))
+	} else {
+		if err := rename(p.tmp, path); err != nil {
+			os.Remove(p.tmp)
+			return pathError("rename", path, bareErr(err))
+		}
+		placed = true
 	}
 	// Without the folder sync the rename may not survive a crash. Keep the
 	// promise that an error leaves nothing at path: a caller that treats
@@ -265,9 +286,9 @@ func (p *pending) commit(ifAbsent bool) error {
 // and hashes its temporary file as usual; the fsync, rename and folder
 // sync that put the file in place then run on another goroutine, so the
 // caller can go on with its next file instead of waiting for the disk.
-// At most limit files wait at a time; a write that would make one more
-// waits for a slot. Writes to an object store are not deferred: their
-// upload is their commit.
+// At most limit commits run at a time; a write that would start one more
+// waits for a slot, holding its temporary file open. Writes to an object
+// store are not deferred: their upload is their commit.
 //
 // A deferred file is in place, whole, only once Wait has returned nil;
 // until then it may be missing, and a failed commit leaves nothing at its
@@ -275,20 +296,28 @@ func (p *pending) commit(ifAbsent bool) error {
 // last write, on error paths too, so that no commit runs on after the
 // caller returns.
 type Commits struct {
-	g errgroup.Group
+	g      errgroup.Group
+	ctx    context.Context
+	cancel context.CancelCauseFunc
 }
 
 // NewCommits returns a Commits running at most limit commits at a time
-// (at least 1).
-func NewCommits(limit int) *Commits {
-	c := &Commits{}
+// (at least 1), and a context derived from ctx that is cancelled, with
+// the failure as its cause, when a commit fails: give it to the work that
+// writes the files, so that it stops. A file whose commit finds that
+// context done before its rename is not put in place: its temporary file
+// is removed, and the commit fails with the context's cause.
+func NewCommits(ctx context.Context, limit int) (*Commits, context.Context) {
+	ctx, cancel := context.WithCancelCause(ctx)
+	c := &Commits{ctx: ctx, cancel: cancel}
 	c.g.SetLimit(max(limit, 1))
-	return c
+	return c, ctx
 }
 
 func (c *Commits) add(p *pending, then func()) {
 	c.g.Go(func() error {
-		if err := p.commit(false); err != nil {
+		if err := p.commit(c.ctx, false); err != nil {
+			c.cancel(err)
 			return err
 		}
 		if then != nil {
@@ -299,7 +328,11 @@ func (c *Commits) add(p *pending, then func()) {
 }
 
 // Wait waits for every commit handed over and returns the first error.
-func (c *Commits) Wait() error { return c.g.Wait() }
+func (c *Commits) Wait() error {
+	err := c.g.Wait()
+	c.cancel(context.Canceled)
+	return err
+}
 
 // bareErr strips the *fs.PathError or *os.LinkError wrapper that package os
 // puts around errors on the temporary file, whose name means nothing to

@@ -60,7 +60,7 @@ func TestCommitsDeferPlacement(t *testing.T) {
 	gateSyncs(t, gate, &running, &peak)
 	dir := t.TempDir()
 	path := filepath.Join(dir, "v.parquet")
-	c := NewCommits(1)
+	c, _ := NewCommits(context.Background(), 1)
 	w, err := WriteParquetAtomic(context.Background(), path, bigFloatSchema, WriteOptions{Commits: c}, fillBigFloat(memory.DefaultAllocator))
 	if err != nil {
 		t.Fatal(err)
@@ -93,7 +93,7 @@ func TestCommitsLimit(t *testing.T) {
 			var running, peak atomic.Int32
 			gateSyncs(t, gate, &running, &peak)
 			dir := t.TempDir()
-			c := NewCommits(limit)
+			c, _ := NewCommits(context.Background(), limit)
 			var wg sync.WaitGroup
 			errs := make([]error, 6)
 			for i := range errs {
@@ -142,7 +142,7 @@ func TestCommitsFailures(t *testing.T) {
 			inject(t, f, &writes)
 			dir := t.TempDir()
 			path := filepath.Join(dir, "v.parquet")
-			c := NewCommits(2)
+			c, ctx := NewCommits(context.Background(), 2)
 			if _, err := WriteParquetAtomic(context.Background(), path, bigFloatSchema, WriteOptions{Commits: c}, fillBigFloat(memory.DefaultAllocator)); err != nil {
 				t.Fatalf("write: %v; the failure belongs to the commit", err)
 			}
@@ -150,7 +150,32 @@ func TestCommitsFailures(t *testing.T) {
 			if !errors.Is(err, errInjected) || !strings.Contains(err.Error(), path) || strings.Contains(err.Error(), ".tmp-") {
 				t.Fatalf("Wait: %v, want the injected failure naming %s", err, path)
 			}
+			if cause := context.Cause(ctx); cause != err {
+				t.Fatalf("the writers' context ended with %v, want the commit's failure", cause)
+			}
 			assertNothingLeft(t, dir)
 		})
 	}
+}
+
+// TestCommitsStopped: a file whose commit finds the context done before
+// the rename (a lost lock, an interrupt) is not put in place.
+func TestCommitsStopped(t *testing.T) {
+	gate := make(chan struct{})
+	var running, peak atomic.Int32
+	gateSyncs(t, gate, &running, &peak)
+	parent, cancel := context.WithCancelCause(context.Background())
+	stop := errors.New("test stops the run")
+	dir := t.TempDir()
+	path := filepath.Join(dir, "v.parquet")
+	c, _ := NewCommits(parent, 1)
+	if _, err := WriteParquetAtomic(context.Background(), path, bigFloatSchema, WriteOptions{Commits: c}, fillBigFloat(memory.DefaultAllocator)); err != nil {
+		t.Fatal(err)
+	}
+	cancel(stop) // while the commit waits in its sync
+	close(gate)
+	if err := c.Wait(); !errors.Is(err, stop) {
+		t.Fatalf("Wait: %v, want the stop's cause", err)
+	}
+	assertNothingLeft(t, dir)
 }

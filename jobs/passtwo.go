@@ -57,7 +57,8 @@ type written struct {
 // returned, before passTwo returns.
 func passTwo(ctx context.Context, cfg *Config, p *plan, params []stats.Params, meta string, known []fileResult) ([]written, error) {
 	results := make([]written, len(p.Files))
-	commits := arrowio.NewCommits(cfg.Workers)
+	// A failed commit cancels ctx, which stops the workers.
+	commits, ctx := arrowio.NewCommits(ctx, cfg.Workers)
 	err := forEachFile(ctx, cfg.Workers, len(p.Files), func(ctx context.Context, i int) error {
 		if !p.mine(i) {
 			return nil
@@ -73,8 +74,12 @@ func passTwo(ctx context.Context, cfg *Config, p *plan, params []stats.Params, m
 		results[i] = res
 		return nil
 	})
-	if cerr := commits.Wait(); err == nil {
-		err = cerr
+	switch cerr := commits.Wait(); {
+	case cerr == nil:
+	case err == nil || errors.Is(err, cerr):
+		err = cerr // the workers stopped because of it
+	default:
+		err = errors.Join(err, cerr)
 	}
 	if err == nil {
 		hookOutputsInPlace()

@@ -140,8 +140,16 @@ func TestRunCancelledThenRerun(t *testing.T) {
 	writeDemoLake(t, lake)
 	out := filepath.Join(tmp, "out")
 	ctx, cancel := context.WithCancelCause(context.Background())
-	stop := errors.New("test cancels after the first output")
-	hookFileWritten = func(string) { cancel(stop) }
+	stop := errors.New("test cancels after the second output is written")
+	// With one worker, one commit runs at a time: the second file is
+	// handed over only once the first is in place. The second, written
+	// but not yet renamed when the run is cancelled, is abandoned.
+	written := 0
+	hookFileWritten = func(string) {
+		if written++; written == 2 {
+			cancel(stop)
+		}
+	}
 	defer func() { hookFileWritten = func(string) {} }()
 	err := Run(ctx, testConfig(t, lake, out, 1))
 	if !errors.Is(err, stop) {

@@ -78,7 +78,7 @@ func main() {
 	}
 	var rows, bytes int64
 	var mu sync.Mutex
-	commits := arrowio.NewCommits(*workers)
+	commits, _ := arrowio.NewCommits(context.Background(), *workers)
 	err = forEach(*workers, len(files), func(i int) error {
 		var n, b int64
 		var err error
