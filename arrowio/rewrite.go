@@ -238,13 +238,13 @@ func (r *Reader) mapColumn(ctx context.Context, rg, c int, cw file.ColumnChunkWr
 		}
 		levels = b.ones
 	}
-	unsigned := unsignedType(r.fr.Manifest.Fields[c].Field.Type.ID())
+	t := r.fr.Manifest.Fields[c].Field.Type.ID()
 	var rows int64
 	for {
 		if err := context.Cause(ctx); err != nil {
 			return 0, err
 		}
-		vals, total, nv, err := b.read(cr, n, defs, unsigned)
+		vals, total, nv, err := b.read(cr, n, defs, t)
 		if err != nil || total == 0 {
 			return rows, err
 		}
@@ -291,21 +291,21 @@ func (r *Reader) copyColumn(ctx context.Context, rg, c int, cw file.ColumnChunkW
 	}
 	switch cr := cr.(type) {
 	case *file.BooleanColumnChunkReader:
-		return copyChunk(ctx, cr, cw, &b.bools, defs, n)
+		return copyChunk(ctx, cr, cw, &b.bools, defs, n, nil)
 	case *file.Int32ColumnChunkReader:
-		return copyChunk(ctx, cr, cw, &b.i32, defs, n)
+		return copyChunk(ctx, cr, cw, &b.i32, defs, n, narrowCheck(r.fr.Manifest.Fields[c].Field.Type.ID()))
 	case *file.Int64ColumnChunkReader:
-		return copyChunk(ctx, cr, cw, &b.i64, defs, n)
+		return copyChunk(ctx, cr, cw, &b.i64, defs, n, nil)
 	case *file.Int96ColumnChunkReader:
-		return copyChunk(ctx, cr, cw, &b.i96, defs, n)
+		return copyChunk(ctx, cr, cw, &b.i96, defs, n, nil)
 	case *file.Float32ColumnChunkReader:
-		return copyChunk(ctx, cr, cw, &b.f32, defs, n)
+		return copyChunk(ctx, cr, cw, &b.f32, defs, n, nil)
 	case *file.Float64ColumnChunkReader:
-		return copyChunk(ctx, cr, cw, &b.f64, defs, n)
+		return copyChunk(ctx, cr, cw, &b.f64, defs, n, nil)
 	case *file.ByteArrayColumnChunkReader:
-		return copyChunk(ctx, cr, cw, &b.bytes, defs, n)
+		return copyChunk(ctx, cr, cw, &b.bytes, defs, n, nil)
 	case *file.FixedLenByteArrayColumnChunkReader:
-		return copyChunk(ctx, cr, cw, &b.fixed, defs, n)
+		return copyChunk(ctx, cr, cw, &b.fixed, defs, n, nil)
 	}
 	return 0, fmt.Errorf("cannot copy a %T", cr)
 }
@@ -328,8 +328,8 @@ type chunkWriter[T any] interface {
 // The encoders copy them, but the column chunk's statistics keep the
 // min and max slices until the chunk is closed: that is safe because page
 // buffers come from an allocator that never reuses memory (see
-// RewriteParquetAtomic).
-func copyChunk[T any](ctx context.Context, cr chunkReader[T], cw file.ColumnChunkWriter, buf *[]T, defs []int16, n int) (int64, error) {
+// RewriteParquetAtomic). check, when not nil, vets each batch's values.
+func copyChunk[T any](ctx context.Context, cr chunkReader[T], cw file.ColumnChunkWriter, buf *[]T, defs []int16, n int, check func([]T) error) (int64, error) {
 	w, ok := cw.(chunkWriter[T])
 	if !ok {
 		return 0, fmt.Errorf("cannot copy %T values into a %T", *buf, cw)
@@ -343,6 +343,11 @@ func copyChunk[T any](ctx context.Context, cr chunkReader[T], cw file.ColumnChun
 		vals, lv, total, err := readChunk(cr, *buf, defs)
 		if err != nil || total == 0 {
 			return rows, err
+		}
+		if check != nil {
+			if err := check(vals); err != nil {
+				return 0, err
+			}
 		}
 		rows += total
 		if _, err := w.WriteBatch(vals, lv, nil); err != nil {

@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"math"
 	"unsafe"
 
 	"github.com/apache/arrow/go/v17/arrow"
@@ -44,6 +45,40 @@ func unsignedType(t arrow.Type) bool {
 	return false
 }
 
+// narrowCheck returns, for the Arrow types stored as a wider INT32 (INT(8)
+// and INT(16), signed or not), a check that each value of a batch fits the
+// type; nil for other types. A valid file never fails it. Arrow's record
+// reader truncates such values silently (300 would be read as the int8
+// 44); the scan and the rewrite refuse the file instead, naming the value.
+func narrowCheck(t arrow.Type) func([]int32) error {
+	var lo, hi int64
+	switch t {
+	case arrow.INT8:
+		lo, hi = math.MinInt8, math.MaxInt8
+	case arrow.INT16:
+		lo, hi = math.MinInt16, math.MaxInt16
+	case arrow.UINT8:
+		lo, hi = 0, math.MaxUint8
+	case arrow.UINT16:
+		lo, hi = 0, math.MaxUint16
+	default:
+		return nil
+	}
+	return func(vals []int32) error {
+		for _, v := range vals {
+			if u := int64(v); t == arrow.UINT8 || t == arrow.UINT16 {
+				u = int64(uint32(v))
+				if u > hi {
+					return fmt.Errorf("%w: value %d does not fit the column's type %s", errCorruptData, u, t)
+				}
+			} else if u < lo || u > hi {
+				return fmt.Errorf("%w: value %d does not fit the column's type %s", errCorruptData, u, t)
+			}
+		}
+		return nil
+	}
+}
+
 // CanScan reports whether ScanColumn can read top-level column col: a flat
 // (not nested, not repeated) column of a float or integer Arrow type
 // stored in the matching Parquet physical type.
@@ -77,11 +112,13 @@ type scanBuffers struct {
 	out32 []float32
 }
 
-// read decodes the next batch of at most n rows of a numeric column into
-// b (see readChunk): the non-null values, densely packed (as unsigned
-// types when unsigned), the rows read (0 at the end) and the count of
-// values. defs, when not nil, receives the definition levels.
-func (b *scanBuffers) read(cr file.ColumnChunkReader, n int, defs []int16, unsigned bool) (vals any, total int64, nv int, err error) {
+// read decodes the next batch of at most n rows of a numeric column of
+// Arrow type t into b (see readChunk): the non-null values, densely packed
+// (as unsigned types when t is unsigned), the rows read (0 at the end) and
+// the count of values. defs, when not nil, receives the definition levels.
+// Values that do not fit a narrow t (narrowCheck) are an error.
+func (b *scanBuffers) read(cr file.ColumnChunkReader, n int, defs []int16, t arrow.Type) (vals any, total int64, nv int, err error) {
+	unsigned := unsignedType(t)
 	switch c := cr.(type) {
 	case *file.Float64ColumnChunkReader:
 		return readInto(c, &b.f64, n, defs)
@@ -89,6 +126,9 @@ func (b *scanBuffers) read(cr file.ColumnChunkReader, n int, defs []int16, unsig
 		return readInto(c, &b.f32, n, defs)
 	case *file.Int32ColumnChunkReader:
 		vals, total, nv, err = readInto(c, &b.i32, n, defs)
+		if check := narrowCheck(t); check != nil && err == nil {
+			err = check(b.i32[:nv])
+		}
 		if unsigned && err == nil { // the same bits, read as unsigned
 			vals = unsafe.Slice((*uint32)(unsafe.Pointer(unsafe.SliceData(b.i32))), nv)
 		}
@@ -154,13 +194,12 @@ func (r *Reader) ScanColumn(ctx context.Context, rg, col int, batchRows int64, f
 		b.defs = grow(b.defs, n)
 		defs = b.defs
 	}
-	unsigned := unsignedType(f.Field.Type.ID())
 	var rows int64
 	for {
 		if err := context.Cause(ctx); err != nil {
 			return err
 		}
-		vals, total, nv, err := b.read(cr, n, defs, unsigned)
+		vals, total, nv, err := b.read(cr, n, defs, f.Field.Type.ID())
 		if err != nil {
 			return fail(err)
 		}
