@@ -53,7 +53,13 @@ func planRewrite(r *Reader, out *arrow.Schema, maps []ValueMap, opts WriteOption
 		return nil, fmt.Errorf("%w: %d maps, %d output fields, %d input columns, %d input leaves",
 			ErrNotRewritable, len(maps), out.NumFields(), len(r.fr.Manifest.Fields), in.NumColumns())
 	}
-	props, arrowProps, err := writerProps(out, opts, mem)
+	var extra []parquet.WriterProperty
+	for c, m := range maps {
+		if m == nil && c < in.NumColumns() && r.dictionaryAbandoned(c) {
+			extra = append(extra, parquet.WithDictionaryPath(in.Column(c).ColumnPath(), false))
+		}
+	}
+	props, arrowProps, err := writerProps(out, opts, mem, extra...)
 	if err != nil {
 		return nil, err
 	}
@@ -104,6 +110,33 @@ func planRewrite(r *Reader, out *arrow.Schema, maps []ValueMap, opts WriteOption
 		return nil, err
 	}
 	return &rewritePlan{pq: pq, props: props, meta: meta}, nil
+}
+
+// dictionaryAbandoned reports whether the writer of r's file gave up
+// dictionary encoding for leaf column c in some row group: the chunk has
+// a dictionary page and a data page that is not dictionary-encoded (what
+// a writer does when the dictionary outgrows its limit; the chunk's page
+// encoding statistics tell, Apache Parquet format specification,
+// ColumnMetaData.encoding_stats). A copy of such a column is written
+// without a dictionary: the values would only fill one again, at the cost
+// of hashing each of them, and be written plain after it.
+func (r *Reader) dictionaryAbandoned(c int) bool {
+	md := r.pr.MetaData()
+	for rg := range r.NumRowGroups() {
+		cc, err := md.RowGroup(rg).ColumnChunk(c)
+		if err != nil || !cc.HasDictionaryPage() {
+			continue
+		}
+		for _, s := range cc.EncodingStats() {
+			switch s.PageType.String() {
+			case "DATA_PAGE", "DATA_PAGE_V2":
+				if s.Encoding != parquet.Encodings.RLEDict && s.Encoding != parquet.Encodings.PlainDict {
+					return true
+				}
+			}
+		}
+	}
+	return false
 }
 
 // ErrNotRewritable is what RewriteParquetAtomic returns, before writing

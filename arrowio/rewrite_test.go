@@ -6,11 +6,14 @@ import (
 	"errors"
 	"math"
 	"os"
+	"reflect"
 	"strings"
 	"testing"
 
 	"github.com/apache/arrow/go/v17/arrow"
+	"github.com/apache/arrow/go/v17/arrow/array"
 	"github.com/apache/arrow/go/v17/arrow/memory"
+	"github.com/apache/arrow/go/v17/parquet"
 	"github.com/apache/arrow/go/v17/parquet/pqarrow"
 )
 
@@ -293,5 +296,66 @@ func TestReadChunkChecks(t *testing.T) {
 	required := &fakeChunk{batches: []fakeBatch{{vals: []int32{1, 2}, defs: []int16{0, 0, 0}}}}
 	if _, _, _, err := readChunk[int32](required, buf, nil); !errors.Is(err, errCorruptData) {
 		t.Errorf("2 values for 3 required rows: %v, want errCorruptData", err)
+	}
+}
+
+// TestRewriteFollowsAbandonedDictionary: a copied column whose input
+// writer gave up its dictionary (distinct int64 values overflowing a 4 KiB
+// dictionary page) is copied without a dictionary; a column whose input
+// kept one (three strings) keeps it. The independent reader
+// github.com/xitongsys/parquet-go reads the same values from both files.
+func TestRewriteFollowsAbandonedDictionary(t *testing.T) {
+	mem := memory.DefaultAllocator
+	sc := arrow.NewSchema([]arrow.Field{
+		{Name: "ts", Type: arrow.PrimitiveTypes.Int64},
+		{Name: "site", Type: arrow.BinaryTypes.String},
+	}, nil)
+	b := array.NewRecordBuilder(mem, sc)
+	defer b.Release()
+	sites := []string{"cape-east", "high-moor", "salt-flats"}
+	for i := range 50_000 {
+		b.Field(0).(*array.Int64Builder).Append(1_700_000_000 + int64(i)*10)
+		b.Field(1).(*array.StringBuilder).Append(sites[i%3])
+	}
+	rec := b.NewRecord()
+	defer rec.Release()
+	in := tempPath(t, "in.parquet")
+	f, err := os.Create(in)
+	if err != nil {
+		t.Fatal(err)
+	}
+	props := parquet.NewWriterProperties(parquet.WithDictionaryDefault(true), parquet.WithDictionaryPageSizeLimit(4<<10))
+	w, err := pqarrow.NewFileWriter(sc, f, props, pqarrow.NewArrowWriterProperties(pqarrow.WithStoreSchema()))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := w.Write(rec); err != nil {
+		t.Fatal(err)
+	}
+	if err := w.Close(); err != nil {
+		t.Fatal(err)
+	}
+	r := openT(t, in)
+	if !r.dictionaryAbandoned(0) || r.dictionaryAbandoned(1) {
+		t.Fatalf("abandoned dictionaries: ts %v, site %v; want true, false", r.dictionaryAbandoned(0), r.dictionaryAbandoned(1))
+	}
+	out := tempPath(t, "out.parquet")
+	if _, err := RewriteParquetAtomic(context.Background(), out, r, r.Schema(), make([]ValueMap, 2), WriteOptions{}); err != nil {
+		t.Fatal(err)
+	}
+	o := openT(t, out)
+	for c, want := range []bool{false, true} {
+		cc, err := o.pr.MetaData().RowGroup(0).ColumnChunk(c)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if cc.HasDictionaryPage() != want {
+			t.Errorf("output column %d: dictionary page %v, want %v", c, cc.HasDictionaryPage(), want)
+		}
+	}
+	_, _, inCols := independentRead(t, in)
+	_, _, outCols := independentRead(t, out)
+	if !reflect.DeepEqual(inCols, outCols) {
+		t.Fatal("the independent reader reads other values from the copy")
 	}
 }

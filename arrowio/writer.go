@@ -95,8 +95,8 @@ const outputPageBytes = 256 << 10
 // row-group cap, pages of outputPageBytes, and dictionary encoding off for
 // float and double columns, whose high-entropy values rarely repeat (a
 // dictionary there costs CPU and is usually abandoned for plain encoding
-// once the dictionary page fills).
-func writerProps(schema *arrow.Schema, opts WriteOptions, mem memory.Allocator) (*parquet.WriterProperties, pqarrow.ArrowWriterProperties, error) {
+// once the dictionary page fills). extra comes last, overriding the rest.
+func writerProps(schema *arrow.Schema, opts WriteOptions, mem memory.Allocator, extra ...parquet.WriterProperty) (*parquet.WriterProperties, pqarrow.ArrowWriterProperties, error) {
 	codec, err := opts.Compression.codec()
 	if err != nil {
 		return nil, pqarrow.ArrowWriterProperties{}, err
@@ -128,6 +128,7 @@ func writerProps(schema *arrow.Schema, opts WriteOptions, mem memory.Allocator) 
 			base = append(base, parquet.WithDictionaryPath(col.ColumnPath(), false))
 		}
 	}
+	base = append(base, extra...)
 	return parquet.NewWriterProperties(base...), arrowProps, nil
 }
 
