@@ -50,9 +50,10 @@ func writeNarrow(t *testing.T, path string, bits int, signed bool, vals []int32)
 	}
 }
 
-// TestNarrowIntegersOutOfRange: the scan and the rewrite refuse an INT(8)
-// or INT(16) column holding a value its annotation cannot hold, naming
-// the value, and accept the extremes of each range.
+// TestNarrowIntegersOutOfRange: the scan, the record reader (which Arrow
+// would let truncate) and the rewrite refuse an INT(8) or INT(16) column
+// holding a value its annotation cannot hold, naming the value, and accept
+// the extremes of each range.
 func TestNarrowIntegersOutOfRange(t *testing.T) {
 	for _, tc := range []struct {
 		bits   int
@@ -65,6 +66,8 @@ func TestNarrowIntegersOutOfRange(t *testing.T) {
 		{8, true, []int32{-129}, "-129"},
 		{16, true, []int32{-32768, 32767}, ""},
 		{16, true, []int32{0, -40000}, "-40000"},
+		{16, true, []int32{32768}, "32768"},
+		{16, true, []int32{-32769}, "-32769"},
 		{8, false, []int32{0, 255}, ""},
 		{8, false, []int32{256}, "256"},
 		{8, false, []int32{-1}, "4294967295"},
@@ -112,6 +115,11 @@ func TestNarrowIntegersOutOfRange(t *testing.T) {
 			if tc.bad == "" && seen != len(tc.vals) {
 				t.Fatalf("scan saw %d values, want %d", seen, len(tc.vals))
 			}
+			rr, err := r.Records(context.Background(), 0, nil, 0)
+			if err == nil {
+				rr.Release()
+			}
+			check("records", in, err)
 			out := filepath.Join(dir, "out", "o.parquet")
 			_, err = RewriteParquetAtomic(context.Background(), out, r, r.Schema(), make([]ValueMap, 1), WriteOptions{})
 			check("rewrite", out, err)
