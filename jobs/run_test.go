@@ -7,6 +7,7 @@ import (
 	"os"
 	"path/filepath"
 	"reflect"
+	"sync/atomic"
 	"testing"
 	"time"
 
@@ -144,9 +145,9 @@ func TestRunCancelledThenRerun(t *testing.T) {
 	// With one worker, one commit runs at a time: the second file is
 	// handed over only once the first is in place. The second, written
 	// but not yet renamed when the run is cancelled, is abandoned.
-	written := 0
+	var written atomic.Int32 // the re-run below has two workers
 	hookFileWritten = func(string) {
-		if written++; written == 2 {
+		if written.Add(1) == 2 {
 			cancel(stop)
 		}
 	}
