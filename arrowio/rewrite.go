@@ -55,7 +55,7 @@ func planRewrite(r *Reader, out *arrow.Schema, maps []ValueMap, opts WriteOption
 	}
 	var extra []parquet.WriterProperty
 	for c, m := range maps {
-		if m == nil && c < in.NumColumns() && r.dictionaryAbandoned(c) {
+		if m == nil && r.dictionaryAbandoned(c) {
 			extra = append(extra, parquet.WithDictionaryPath(in.Column(c).ColumnPath(), false))
 		}
 	}
