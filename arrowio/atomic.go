@@ -155,11 +155,11 @@ func writeDeferred(path string, c *Commits, write func(io.Writer) error, then fu
 	if err != nil {
 		return 0, "", err
 	}
-	c.add(p, func() {
-		if then != nil {
-			then(n)
-		}
-	})
+	var placed func()
+	if then != nil {
+		placed = func() { then(n) }
+	}
+	c.add(p, placed)
 	return n, sum, nil
 }
 

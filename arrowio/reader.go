@@ -277,7 +277,7 @@ func (r *Reader) Records(ctx context.Context, rg int, cols []int, batchRows int6
 	if batchRows <= 0 {
 		batchRows = DefaultBatchRows
 	}
-	if err := r.checkNarrow(ctx, rg, cols, batchRows); err != nil {
+	if err := r.scanNarrowColumns(ctx, rg, cols, batchRows); err != nil {
 		return nil, err
 	}
 	r.fr.Props.BatchSize = batchRows
@@ -295,12 +295,12 @@ func (r *Reader) Records(ctx context.Context, rg int, cols []int, batchRows int6
 	return b, nil
 }
 
-// checkNarrow scans the top-level INT(8) and INT(16) columns among cols
-// (nil: all) of row group rg, whose out-of-range values Arrow's record
-// reader would truncate silently (see narrowCheck); the scan refuses them.
+// scanNarrowColumns scans the top-level INT(8) and INT(16) columns among
+// cols (nil: all) of row group rg, whose out-of-range values Arrow's record
+// reader would truncate silently (see checkNarrow); the scan refuses them.
 // Such columns inside nested ones are not checked. Files rarely have any,
 // so this costs nothing for most.
-func (r *Reader) checkNarrow(ctx context.Context, rg int, cols []int, batchRows int64) error {
+func (r *Reader) scanNarrowColumns(ctx context.Context, rg int, cols []int, batchRows int64) error {
 	fields := r.fr.Manifest.Fields
 	if cols == nil {
 		cols = make([]int, len(fields))
@@ -309,7 +309,7 @@ func (r *Reader) checkNarrow(ctx context.Context, rg int, cols []int, batchRows 
 		}
 	}
 	for _, c := range cols {
-		if narrowCheck(fields[c].Field.Type.ID()) == nil || !r.CanScan(c) {
+		if !isNarrow(fields[c].Field.Type.ID()) || !r.CanScan(c) {
 			continue
 		}
 		if err := r.ScanColumn(ctx, rg, c, batchRows, func(any, int) error { return nil }); err != nil {

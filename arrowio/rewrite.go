@@ -326,7 +326,11 @@ func (r *Reader) copyColumn(ctx context.Context, rg, c int, cw file.ColumnChunkW
 	case *file.BooleanColumnChunkReader:
 		return copyChunk(ctx, cr, cw, &b.bools, defs, n, nil)
 	case *file.Int32ColumnChunkReader:
-		return copyChunk(ctx, cr, cw, &b.i32, defs, n, narrowCheck(r.fr.Manifest.Fields[c].Field.Type.ID()))
+		var check func([]int32) error
+		if t := r.fr.Manifest.Fields[c].Field.Type.ID(); isNarrow(t) {
+			check = func(v []int32) error { return checkNarrow(t, v) }
+		}
+		return copyChunk(ctx, cr, cw, &b.i32, defs, n, check)
 	case *file.Int64ColumnChunkReader:
 		return copyChunk(ctx, cr, cw, &b.i64, defs, n, nil)
 	case *file.Int96ColumnChunkReader:

@@ -45,38 +45,48 @@ func unsignedType(t arrow.Type) bool {
 	return false
 }
 
-// narrowCheck returns, for the Arrow types stored as a wider INT32 (INT(8)
-// and INT(16), signed or not), a check that each value of a batch fits the
-// type; nil for other types. A valid file never fails it. Arrow's record
-// reader truncates such values silently (300 would be read as the int8
-// 44); the scan and the rewrite refuse the file instead, naming the value.
-func narrowCheck(t arrow.Type) func([]int32) error {
-	var lo, hi int64
+// narrowRange is the range of the Arrow types stored as a wider INT32
+// (INT(8) and INT(16), signed or not); ok is false for other types.
+func narrowRange(t arrow.Type) (lo, hi int64, ok bool) {
 	switch t {
 	case arrow.INT8:
-		lo, hi = math.MinInt8, math.MaxInt8
+		return math.MinInt8, math.MaxInt8, true
 	case arrow.INT16:
-		lo, hi = math.MinInt16, math.MaxInt16
+		return math.MinInt16, math.MaxInt16, true
 	case arrow.UINT8:
-		lo, hi = 0, math.MaxUint8
+		return 0, math.MaxUint8, true
 	case arrow.UINT16:
-		lo, hi = 0, math.MaxUint16
-	default:
+		return 0, math.MaxUint16, true
+	}
+	return 0, 0, false
+}
+
+func isNarrow(t arrow.Type) bool {
+	_, _, ok := narrowRange(t)
+	return ok
+}
+
+// checkNarrow returns an error naming the first of vals (the INT32 values
+// of a column of Arrow type t) that does not fit t, and nil when all fit or
+// t is not narrow (narrowRange). A valid file never fails it. Arrow's
+// record reader truncates such values silently (300 would be read as the
+// int8 44); the scan, the rewrite and Records refuse the file instead.
+func checkNarrow(t arrow.Type, vals []int32) error {
+	lo, hi, ok := narrowRange(t)
+	if !ok {
 		return nil
 	}
-	return func(vals []int32) error {
-		for _, v := range vals {
-			if u := int64(v); t == arrow.UINT8 || t == arrow.UINT16 {
-				u = int64(uint32(v))
-				if u > hi {
-					return fmt.Errorf("%w: value %d does not fit the column's type %s", errCorruptData, u, t)
-				}
-			} else if u < lo || u > hi {
-				return fmt.Errorf("%w: value %d does not fit the column's type %s", errCorruptData, u, t)
-			}
+	unsigned := unsignedType(t)
+	for _, v := range vals {
+		x := int64(v)
+		if unsigned {
+			x = int64(uint32(v))
 		}
-		return nil
+		if x < lo || x > hi {
+			return fmt.Errorf("%w: value %d does not fit the column's type %s", errCorruptData, x, t)
+		}
 	}
+	return nil
 }
 
 // CanScan reports whether ScanColumn can read top-level column col: a flat
@@ -116,7 +126,7 @@ type scanBuffers struct {
 // Arrow type t into b (see readChunk): the non-null values, densely packed
 // (as unsigned types when t is unsigned), the rows read (0 at the end) and
 // the count of values. defs, when not nil, receives the definition levels.
-// Values that do not fit a narrow t (narrowCheck) are an error.
+// Values that do not fit a narrow t (checkNarrow) are an error.
 func (b *scanBuffers) read(cr file.ColumnChunkReader, n int, defs []int16, t arrow.Type) (vals any, total int64, nv int, err error) {
 	unsigned := unsignedType(t)
 	switch c := cr.(type) {
@@ -126,8 +136,8 @@ func (b *scanBuffers) read(cr file.ColumnChunkReader, n int, defs []int16, t arr
 		return readInto(c, &b.f32, n, defs)
 	case *file.Int32ColumnChunkReader:
 		vals, total, nv, err = readInto(c, &b.i32, n, defs)
-		if check := narrowCheck(t); check != nil && err == nil {
-			err = check(b.i32[:nv])
+		if err == nil {
+			err = checkNarrow(t, b.i32[:nv])
 		}
 		if unsigned && err == nil { // the same bits, read as unsigned
 			vals = unsafe.Slice((*uint32)(unsafe.Pointer(unsafe.SliceData(b.i32))), nv)
