@@ -137,17 +137,7 @@ func (f *localFile) Create(string) (pqsource.ParquetFile, error) { return nil, o
 // per column, the values with nil for nulls.
 func independentRead(t *testing.T, path string) (rows int64, meta map[string]string, cols [][]any) {
 	t.Helper()
-	f, err := os.Open(path)
-	if err != nil {
-		t.Fatal(err)
-	}
-	src := &localFile{File: f, path: path}
-	defer src.Close()
-	pr, err := newIndependentReader(src)
-	if err != nil {
-		t.Fatalf("xitongsys/parquet-go: %v", err)
-	}
-	defer pr.ReadStop()
+	pr := openIndependent(t, path)
 	rows = pr.GetNumRows()
 	meta = map[string]string{}
 	for _, kv := range pr.Footer.GetKeyValueMetadata() {
@@ -219,6 +209,20 @@ func listDir(t *testing.T, dir string) []string {
 
 func tempPath(t *testing.T, name string) string { return filepath.Join(t.TempDir(), name) }
 
-func newIndependentReader(src *localFile) (*pqgo.ParquetReader, error) {
-	return pqgo.NewParquetColumnReader(src, 1)
+// openIndependent opens path with the independent reader
+// github.com/xitongsys/parquet-go, closed when the test ends.
+func openIndependent(t testing.TB, path string) *pqgo.ParquetReader {
+	t.Helper()
+	f, err := os.Open(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	src := &localFile{File: f, path: path}
+	t.Cleanup(func() { src.Close() })
+	pr, err := pqgo.NewParquetColumnReader(src, 1)
+	if err != nil {
+		t.Fatalf("xitongsys/parquet-go: %v", err)
+	}
+	t.Cleanup(pr.ReadStop)
+	return pr
 }

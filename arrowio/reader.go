@@ -28,7 +28,9 @@ const DefaultBatchRows = 64 << 10
 // reads each whole column chunk into memory before decoding it; when true
 // it reads through a buffer of streamBufferSize bytes. For a 1M-row
 // float64 column on local disk, buffered reads allocated a third less (29
-// against 45 MB) for the same or less CPU (BenchmarkReadFloat64).
+// against 45 MB) for the same or less CPU (BenchmarkReadFloat64). This is
+// the record reader's path; scans and rewrites read the chunks of a
+// buffered Reader through a chunkStream (chunkread.go).
 var bufferedStreams = true
 
 const streamBufferSize = 1 << 20
@@ -49,6 +51,10 @@ type Reader struct {
 	meta   map[string]string
 	footer string
 	scan   scanBuffers
+
+	mem         memory.Allocator // the file reader's
+	wholeChunks bool             // obj is read a whole column chunk per request
+	chunks      chunkParts
 }
 
 // Open opens a Parquet file (a path or location) and reads its footer.
@@ -158,6 +164,9 @@ func newReader(path string, obj Object, mem memory.Allocator) (r *Reader, err er
 		schema: schema,
 		meta:   userMetadata(pr.MetaData().KeyValueMetadata()),
 		footer: footer,
+
+		mem:         mem,
+		wholeChunks: !props.BufferedStreamEnabled,
 	}, nil
 }
 

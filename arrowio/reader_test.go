@@ -272,16 +272,7 @@ func TestFooterKeyOrder(t *testing.T) {
 	}
 	path := tempPath(t, "k.parquet")
 	writeRows(t, memory.DefaultAllocator, path, mixedRows(10), 10, WriteOptions{Metadata: meta})
-	f, err := os.Open(path)
-	if err != nil {
-		t.Fatal(err)
-	}
-	src := &localFile{File: f, path: path}
-	defer src.Close()
-	pr, err := newIndependentReader(src)
-	if err != nil {
-		t.Fatal(err)
-	}
+	pr := openIndependent(t, path)
 	var keys []string
 	for _, kv := range pr.Footer.GetKeyValueMetadata() {
 		keys = append(keys, kv.Key)

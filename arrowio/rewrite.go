@@ -170,7 +170,8 @@ func (r *Reader) CanRewrite(schema *arrow.Schema, maps []ValueMap) bool {
 // r must have been opened with Go's allocator (memory.DefaultAllocator or
 // nil, what Open uses unless told otherwise), which never reuses memory:
 // byte-array statistics keep slices of the input's pages until their
-// column chunk is written.
+// column chunk is written. (The pages of the chunks r opens itself come
+// from its pageArena, which recycles them only after that.)
 func RewriteParquetAtomic(ctx context.Context, path string, r *Reader, out *arrow.Schema, maps []ValueMap, opts WriteOptions) (Written, error) {
 	if err := context.Cause(ctx); err != nil {
 		return Written{}, err
@@ -224,11 +225,17 @@ func (r *Reader) rewriteRowGroup(ctx context.Context, rgw file.SerialRowGroupWri
 		if err != nil {
 			return 0, err
 		}
+		// done comes after cw.Close: until then the column's byte-array
+		// statistics may point into the input's pages. After an error the
+		// Reader's chunk parts stay busy and unrecycled.
+		cr, done, err := r.columnReader(rg, c)
 		var rows int64
-		if m != nil {
-			rows, err = r.mapColumn(ctx, rg, c, cw, m, batch)
-		} else {
-			rows, err = r.copyColumn(ctx, rg, c, cw, batch)
+		if err == nil {
+			if m != nil {
+				rows, err = r.mapColumn(ctx, cr, c, cw, m, batch)
+			} else {
+				rows, err = r.copyColumn(ctx, cr, c, cw, batch)
+			}
 		}
 		if err == nil && rows != want {
 			err = fmt.Errorf("%w: read %d rows, the footer says %d", errCorruptData, rows, want)
@@ -242,6 +249,7 @@ func (r *Reader) rewriteRowGroup(ctx context.Context, rgw file.SerialRowGroupWri
 		if err := cw.Close(); err != nil {
 			return 0, fmt.Errorf("column %s: row group %d: %w", name, rg, err)
 		}
+		done()
 	}
 	if err := rgw.Close(); err != nil {
 		return 0, err
@@ -249,14 +257,10 @@ func (r *Reader) rewriteRowGroup(ctx context.Context, rgw file.SerialRowGroupWri
 	return want, nil
 }
 
-// mapColumn reads column c of row group rg in batches, maps each batch's
+// mapColumn reads column c's chunk from cr in batches, maps each batch's
 // values and writes them to cw with the input's definition levels (all
 // defined when the input column is required).
-func (r *Reader) mapColumn(ctx context.Context, rg, c int, cw file.ColumnChunkWriter, m ValueMap, n int) (int64, error) {
-	cr, err := r.columnReader(rg, c)
-	if err != nil {
-		return 0, err
-	}
+func (r *Reader) mapColumn(ctx context.Context, cr file.ColumnChunkReader, c int, cw file.ColumnChunkWriter, m ValueMap, n int) (int64, error) {
 	b := &r.scan
 	var defs, levels []int16 // read into, written from
 	if cr.Descriptor().MaxDefinitionLevel() > 0 {
@@ -304,18 +308,8 @@ func (r *Reader) mapColumn(ctx context.Context, rg, c int, cw file.ColumnChunkWr
 	}
 }
 
-// columnReader opens the reader of leaf column c of row group rg.
-func (r *Reader) columnReader(rg, c int) (cr file.ColumnChunkReader, err error) {
-	err = decoding(func() (err error) { cr, err = r.pr.RowGroup(rg).Column(c); return err })
-	return cr, err
-}
-
-// copyColumn copies column c of row group rg value for value into cw.
-func (r *Reader) copyColumn(ctx context.Context, rg, c int, cw file.ColumnChunkWriter, n int) (int64, error) {
-	cr, err := r.columnReader(rg, c)
-	if err != nil {
-		return 0, err
-	}
+// copyColumn copies column c's chunk from cr value for value into cw.
+func (r *Reader) copyColumn(ctx context.Context, cr file.ColumnChunkReader, c int, cw file.ColumnChunkWriter, n int) (int64, error) {
 	b := &r.scan
 	var defs []int16
 	if cr.Descriptor().MaxDefinitionLevel() > 0 {
@@ -363,8 +357,8 @@ type chunkWriter[T any] interface {
 // for a required column) from cr to cw, a writer of the same type, in
 // batches through *buf. Byte-array values point into cr's page buffers.
 // The encoders copy them, but the column chunk's statistics keep the
-// min and max slices until the chunk is closed: that is safe because page
-// buffers come from an allocator that never reuses memory (see
+// min and max slices until the chunk is closed, so the input's page
+// buffers must not be reused before that (see rewriteRowGroup and
 // RewriteParquetAtomic). check, when not nil, vets each batch's values.
 func copyChunk[T any](ctx context.Context, cr chunkReader[T], cw file.ColumnChunkWriter, buf *[]T, defs []int16, n int, check func([]T) error) (int64, error) {
 	w, ok := cw.(chunkWriter[T])

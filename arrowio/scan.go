@@ -193,10 +193,11 @@ func (r *Reader) ScanColumn(ctx context.Context, rg, col int, batchRows int64, f
 	fail := func(err error) error {
 		return pathError("read", r.path, fmt.Errorf("column %s: row group %d: %w", name, rg, err))
 	}
-	cr, err := r.columnReader(rg, f.ColIndex)
+	cr, done, err := r.columnReader(rg, f.ColIndex)
 	if err != nil {
 		return fail(err)
 	}
+	defer done()
 	b := &r.scan
 	n := int(batchRows)
 	var defs []int16

@@ -113,16 +113,7 @@ func TestWriteEmpty(t *testing.T) {
 	if err != nil || w.Rows != 0 {
 		t.Fatalf("Written %+v, %v", w, err)
 	}
-	f, err := os.Open(path)
-	if err != nil {
-		t.Fatal(err)
-	}
-	src := &localFile{File: f, path: path}
-	defer src.Close()
-	pr, err := newIndependentReader(src)
-	if err != nil {
-		t.Fatalf("xitongsys/parquet-go: %v", err)
-	}
+	pr := openIndependent(t, path)
 	if pr.GetNumRows() != 0 || len(pr.SchemaHandler.ValueColumns) != 4 {
 		t.Errorf("independent reader: %d rows, %d columns; want 0, 4", pr.GetNumRows(), len(pr.SchemaHandler.ValueColumns))
 	}
