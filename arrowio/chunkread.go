@@ -6,8 +6,10 @@ import (
 	"fmt"
 	"io"
 	"math/bits"
+	"sync"
 
 	"github.com/apache/arrow/go/v17/arrow/memory"
+	"github.com/apache/arrow/go/v17/parquet"
 	"github.com/apache/arrow/go/v17/parquet/compress"
 	"github.com/apache/arrow/go/v17/parquet/file"
 	"github.com/apache/arrow/go/v17/parquet/metadata"
@@ -22,14 +24,17 @@ import (
 // from the file into the read buffer and from there into the compressed
 // buffer. For a full run on the benchmark lake that was 4.5 of its 8.6 GB
 // of allocations. A Reader therefore opens the chunks it reads itself
-// (scans and rewrites, never the record reader) with parts it keeps:
+// (scans and rewrites, never the record reader) with parts (chunkParts)
+// that it takes from a pool and gives back on Close, so that they serve
+// file after file:
 //
 //   - a chunkStream, which reads page headers through a small buffer and
 //     page bodies straight into the page reader's buffer;
 //   - one page reader, Reset for each chunk, so its compressed-bytes buffer
 //     stays grown;
-//   - a pageArena, the page reader's allocator, which hands the buffers of
-//     a finished chunk's pages out again.
+//   - a pageArena, the page reader's allocator, which hands page buffers
+//     out again once nothing reads them (see there);
+//   - the buffers scans and rewrites decode values into.
 //
 // Only one such chunk is open at a time per Reader (Readers are not safe
 // for concurrent use anyway); a second one, and a chunk Arrow's own path
@@ -73,19 +78,21 @@ func (s *chunkStream) Peek(n int) ([]byte, error) {
 	return s.buf[s.r : s.r+n], nil
 }
 
-// fill reads into buf until n bytes are buffered or the chunk ends,
-// reading at least peekBytes when the chunk has them.
+// fill reads into buf until n bytes, and up to peekBytes, are buffered,
+// or the chunk ends. It does not read further ahead, nor grow buf beyond
+// what the chunk has left, after a large Peek either.
 func (s *chunkStream) fill(n int) error {
 	copy(s.buf, s.buf[s.r:s.w])
 	s.w -= s.r
 	s.r = 0
-	if size := max(n, peekBytes); cap(s.buf) < size {
+	size := int(min(int64(max(n, peekBytes)), int64(s.w)+s.end-s.off))
+	if cap(s.buf) < size {
 		buf := make([]byte, size)
 		copy(buf, s.buf[:s.w])
 		s.buf = buf
 	}
 	s.buf = s.buf[:cap(s.buf)]
-	k := int(min(int64(len(s.buf)-s.w), s.end-s.off))
+	k := size - s.w
 	if k <= 0 {
 		return nil
 	}
@@ -153,23 +160,34 @@ func readFull(src io.ReaderAt, p []byte, off int64) (int, error) {
 
 // pageArena is the memory.Allocator of a Reader's page reader. Arrow's
 // page reader allocates a buffer for each page's uncompressed bytes and
-// frees it when it reads the next page, while values decoded from it (a
-// byte-array dictionary, byte arrays a writer's statistics still hold) may
-// point into it until the chunk is done. The arena keeps freed buffers
-// aside until recycle, called when nothing read from the chunk is in use
-// any more, then hands them out again. Buffers come in power-of-two sizes
-// from minArenaClass; free ones are kept up to arenaKeepBytes. Not safe for
-// concurrent use.
+// frees it at the end of the call that read the page, while the page is
+// still to be decoded; what is decoded from a page may point into it for
+// longer. The arena therefore hands a freed buffer out again only once
+// nothing can read it any more:
+//
+//   - a data page's buffer of a column of fixed-width values, when the
+//     next page is read (the previous one is decoded by then; see
+//     arenaPager);
+//   - a dictionary page's buffer (its values are decoded lazily, for the
+//     whole chunk), when the chunk is done;
+//   - never a buffer of a byte-array column, whose values point into the
+//     page (a writer's statistics keep them until its column chunk is
+//     closed); those are left to the garbage collector.
+//
+// Buffers come in power-of-two sizes from 1 << minArenaShift; free ones are
+// kept up to arenaKeepBytes. Not safe for concurrent use.
 type pageArena struct {
 	free    [arenaClasses][][]byte
-	pending [][]byte
-	kept    int // bytes in free
+	kept    int      // bytes in free
+	pending [][]byte // freed since the last page was read
+	held    [][]byte // freed, kept until the chunk is done
+	drop    bool     // freed buffers go to the garbage collector
 }
 
 const (
 	minArenaShift  = 12 // 4 KiB
 	arenaClasses   = 13 // up to 16 MiB; larger buffers are not kept
-	arenaKeepBytes = 64 << 20
+	arenaKeepBytes = 16 << 20
 )
 
 var _ memory.Allocator = (*pageArena)(nil)
@@ -190,7 +208,11 @@ func (a *pageArena) Allocate(size int) []byte {
 			b := l[len(l)-1]
 			a.free[c] = l[:len(l)-1]
 			a.kept -= cap(b)
-			return b[:size]
+			// Arrow's page reader can leave part of a page buffer unwritten
+			// for a corrupt page header; Go's allocator gives zeros there.
+			b = b[:size]
+			clear(b)
+			return b
 		}
 		return make([]byte, size, 1<<(minArenaShift+c))
 	}
@@ -208,17 +230,39 @@ func (a *pageArena) Reallocate(size int, b []byte) []byte {
 }
 
 func (a *pageArena) Free(b []byte) {
-	if cap(b) >= 1<<minArenaShift && bits.OnesCount(uint(cap(b))) == 1 {
+	if !a.drop && arenaClass(cap(b)) < arenaClasses && cap(b) >= 1<<minArenaShift && bits.OnesCount(uint(cap(b))) == 1 {
 		a.pending = append(a.pending, b[:cap(b)])
 	}
 }
 
-// recycle makes the buffers freed so far available again.
-func (a *pageArena) recycle() {
-	for i, b := range a.pending {
-		a.pending[i] = nil
-		c := arenaClass(cap(b))
-		if c >= arenaClasses || a.kept+cap(b) > arenaKeepBytes {
+// pageRead is told that the page reader has read a page. When it is a
+// dictionary page, the buffers freed while reading it (its own, and those
+// of pages of kinds Arrow skips, in no set order) are held until the chunk
+// is done.
+func (a *pageArena) pageRead(dictionary bool) {
+	if dictionary {
+		a.held = append(a.held, a.pending...)
+		clear(a.pending)
+		a.pending = a.pending[:0]
+	}
+}
+
+// pageNext is told that the page reader is about to read the next page:
+// the buffers freed so far (but held ones) can be handed out again.
+func (a *pageArena) pageNext() { a.pending = a.recycle(a.pending) }
+
+// chunkDone is told that nothing read from the chunk is in use any more.
+func (a *pageArena) chunkDone() {
+	a.pending = a.recycle(a.pending)
+	a.held = a.recycle(a.held)
+	a.drop = false
+}
+
+// recycle makes the buffers of l available again and returns l emptied.
+func (a *pageArena) recycle(l [][]byte) [][]byte {
+	for i, b := range l {
+		l[i] = nil
+		if a.kept+cap(b) > arenaKeepBytes {
 			continue
 		}
 		if poisonRecycled {
@@ -226,10 +270,11 @@ func (a *pageArena) recycle() {
 				b[j] = 0xa5
 			}
 		}
+		c := arenaClass(cap(b))
 		a.free[c] = append(a.free[c], b)
 		a.kept += cap(b)
 	}
-	a.pending = a.pending[:0]
+	return l[:0]
 }
 
 // poisonRecycled makes recycle overwrite the buffers it recycles, so that
@@ -237,20 +282,43 @@ func (a *pageArena) recycle() {
 // the tests that look for such reads.
 var poisonRecycled = invariants.Enabled
 
-// chunkParts are what a Reader keeps to open column chunks (see above).
+// arenaPager is the page reader a Reader's column readers use: Arrow's,
+// telling the arena where pages begin and end. The column reader asks for
+// the next page only when it has decoded every value of the current one.
+type arenaPager struct {
+	file.PageReader
+	arena *pageArena
+}
+
+func (p *arenaPager) Next() bool {
+	p.arena.pageNext()
+	ok := p.PageReader.Next()
+	if ok {
+		_, dict := p.Page().(*file.DictionaryPage)
+		p.arena.pageRead(dict)
+	}
+	return ok
+}
+
+// chunkParts are what a Reader keeps to open column chunks (see above),
+// with the buffers its scans and rewrites decode into. Readers take them
+// from partsPool and give them back on Close, so that they outlive a file.
 type chunkParts struct {
 	busy   bool
 	stream chunkStream
-	pager  file.PageReader
+	pager  arenaPager
 	arena  pageArena
+	scan   scanBuffers
 }
+
+var partsPool = sync.Pool{New: func() any { return new(chunkParts) }}
 
 // columnReader opens the reader of leaf column c of row group rg. Call
 // done when neither the reader nor anything read from it is used any more
 // (for a copied column: after its output column chunk is closed).
 func (r *Reader) columnReader(rg, c int) (cr file.ColumnChunkReader, done func(), err error) {
 	done = func() {}
-	p := &r.chunks
+	p := r.parts
 	if p.busy || r.wholeChunks || r.pr.WriterVersion().LessThan(metadata.Parquet816FixedVersion) {
 		err = decoding(func() (err error) { cr, err = r.pr.RowGroup(rg).Column(c); return err })
 		return cr, done, err
@@ -277,18 +345,25 @@ func (r *Reader) columnReader(rg, c int) (cr file.ColumnChunkReader, done func()
 			return err
 		}
 		p.stream.reset(r.obj, start, start+length)
-		if p.pager == nil {
-			if p.pager, err = file.NewPageReader(&p.stream, col.NumValues(), col.Compression(), &p.arena, nil); err != nil {
+		if p.pager.PageReader == nil {
+			pr, err := file.NewPageReader(&p.stream, col.NumValues(), col.Compression(), &p.arena, nil)
+			if err != nil {
 				return err
 			}
+			p.pager = arenaPager{PageReader: pr, arena: &p.arena}
 		} else {
 			p.pager.Reset(&p.stream, col.NumValues(), col.Compression(), nil)
 		}
-		cr = file.NewColumnReader(r.pr.MetaData().Schema.Column(c), p.pager, r.mem, r.pr.BufferPool())
+		descr := r.pr.MetaData().Schema.Column(c)
+		switch descr.PhysicalType() {
+		case parquet.Types.ByteArray, parquet.Types.FixedLenByteArray:
+			p.arena.drop = true
+		}
+		cr = file.NewColumnReader(descr, &p.pager, r.mem, r.pr.BufferPool())
 		p.busy = true
 		done = func() {
 			p.busy = false
-			p.arena.recycle()
+			p.arena.chunkDone()
 		}
 		return nil
 	})

@@ -5,11 +5,13 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"reflect"
 	"testing"
 
 	"github.com/apache/arrow/go/v17/arrow"
 	"github.com/apache/arrow/go/v17/arrow/array"
 	"github.com/apache/arrow/go/v17/arrow/memory"
+	"github.com/apache/arrow/go/v17/parquet"
 	"github.com/apache/arrow/go/v17/parquet/pqarrow"
 	pqgo "github.com/xitongsys/parquet-go/reader"
 	pqsource "github.com/xitongsys/parquet-go/source"
@@ -225,4 +227,35 @@ func openIndependent(t testing.TB, path string) *pqgo.ParquetReader {
 	}
 	t.Cleanup(pr.ReadStop)
 	return pr
+}
+
+// writeWithProps writes rec to path with pqarrow and the writer
+// properties props, storing the Arrow schema.
+func writeWithProps(t *testing.T, path string, rec arrow.Record, props *parquet.WriterProperties) {
+	t.Helper()
+	f, err := os.Create(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	w, err := pqarrow.NewFileWriter(rec.Schema(), f, props, pqarrow.NewArrowWriterProperties(pqarrow.WithStoreSchema()))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := w.Write(rec); err != nil {
+		t.Fatal(err)
+	}
+	if err := w.Close(); err != nil {
+		t.Fatal(err)
+	}
+}
+
+// sameIndependentValues fails t unless the independent reader
+// github.com/xitongsys/parquet-go reads the same values from both files.
+func sameIndependentValues(t *testing.T, a, b string) {
+	t.Helper()
+	_, _, ac := independentRead(t, a)
+	_, _, bc := independentRead(t, b)
+	if !reflect.DeepEqual(ac, bc) {
+		t.Fatalf("the independent reader reads other values from %s than from %s", b, a)
+	}
 }

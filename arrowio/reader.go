@@ -50,11 +50,10 @@ type Reader struct {
 	schema *arrow.Schema
 	meta   map[string]string
 	footer string
-	scan   scanBuffers
 
 	mem         memory.Allocator // the file reader's
 	wholeChunks bool             // obj is read a whole column chunk per request
-	chunks      chunkParts
+	parts       *chunkParts      // from partsPool
 }
 
 // Open opens a Parquet file (a path or location) and reads its footer.
@@ -167,6 +166,7 @@ func newReader(path string, obj Object, mem memory.Allocator) (r *Reader, err er
 
 		mem:         mem,
 		wholeChunks: !props.BufferedStreamEnabled,
+		parts:       partsPool.Get().(*chunkParts),
 	}, nil
 }
 
@@ -380,7 +380,13 @@ func (r *Reader) Close() error {
 	if cerr := r.obj.Close(); err == nil {
 		err = cerr
 	}
-	r.pr, r.fr, r.obj = nil, nil, nil
+	// Parts still busy (a scan or rewrite that failed) are left to the
+	// garbage collector.
+	if !r.parts.busy {
+		r.parts.stream.reset(nil, 0, 0)
+		partsPool.Put(r.parts)
+	}
+	r.pr, r.fr, r.obj, r.parts = nil, nil, nil, nil
 	return err
 }
 

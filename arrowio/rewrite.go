@@ -261,7 +261,7 @@ func (r *Reader) rewriteRowGroup(ctx context.Context, rgw file.SerialRowGroupWri
 // values and writes them to cw with the input's definition levels (all
 // defined when the input column is required).
 func (r *Reader) mapColumn(ctx context.Context, cr file.ColumnChunkReader, c int, cw file.ColumnChunkWriter, m ValueMap, n int) (int64, error) {
-	b := &r.scan
+	b := &r.parts.scan
 	var defs, levels []int16 // read into, written from
 	if cr.Descriptor().MaxDefinitionLevel() > 0 {
 		b.defs = grow(b.defs, n)
@@ -310,7 +310,7 @@ func (r *Reader) mapColumn(ctx context.Context, cr file.ColumnChunkReader, c int
 
 // copyColumn copies column c's chunk from cr value for value into cw.
 func (r *Reader) copyColumn(ctx context.Context, cr file.ColumnChunkReader, c int, cw file.ColumnChunkWriter, n int) (int64, error) {
-	b := &r.scan
+	b := &r.parts.scan
 	var defs []int16
 	if cr.Descriptor().MaxDefinitionLevel() > 0 {
 		b.defs = grow(b.defs, n)

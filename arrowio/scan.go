@@ -198,7 +198,7 @@ func (r *Reader) ScanColumn(ctx context.Context, rg, col int, batchRows int64, f
 		return fail(err)
 	}
 	defer done()
-	b := &r.scan
+	b := &r.parts.scan
 	n := int(batchRows)
 	var defs []int16
 	if cr.Descriptor().MaxDefinitionLevel() > 0 {
