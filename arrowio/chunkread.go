@@ -12,7 +12,6 @@ import (
 	"github.com/apache/arrow/go/v17/parquet"
 	"github.com/apache/arrow/go/v17/parquet/compress"
 	"github.com/apache/arrow/go/v17/parquet/file"
-	"github.com/apache/arrow/go/v17/parquet/metadata"
 
 	"github.com/lakescale/lakescale/internal/invariants"
 )
@@ -319,7 +318,7 @@ var partsPool = sync.Pool{New: func() any { return new(chunkParts) }}
 func (r *Reader) columnReader(rg, c int) (cr file.ColumnChunkReader, done func(), err error) {
 	done = func() {}
 	p := r.parts
-	if p.busy || r.wholeChunks || r.pr.WriterVersion().LessThan(metadata.Parquet816FixedVersion) {
+	if p.busy || !r.ownChunks {
 		err = decoding(func() (err error) { cr, err = r.pr.RowGroup(rg).Column(c); return err })
 		return cr, done, err
 	}

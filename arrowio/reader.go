@@ -51,9 +51,9 @@ type Reader struct {
 	meta   map[string]string
 	footer string
 
-	mem         memory.Allocator // the file reader's
-	wholeChunks bool             // obj is read a whole column chunk per request
-	parts       *chunkParts      // from partsPool
+	mem       memory.Allocator // the file reader's
+	ownChunks bool             // columnReader may open chunks with parts (chunkread.go)
+	parts     *chunkParts      // from partsPool
 }
 
 // Open opens a Parquet file (a path or location) and reads its footer.
@@ -164,9 +164,12 @@ func newReader(path string, obj Object, mem memory.Allocator) (r *Reader, err er
 		meta:   userMetadata(pr.MetaData().KeyValueMetadata()),
 		footer: footer,
 
-		mem:         mem,
-		wholeChunks: !props.BufferedStreamEnabled,
-		parts:       partsPool.Get().(*chunkParts),
+		mem: mem,
+		// Arrow's path stays for objects read a whole chunk per request
+		// and for files of writers with PARQUET-816 (its padding needs the
+		// footer's offset, which Arrow's reader does not expose).
+		ownChunks: props.BufferedStreamEnabled && !pr.WriterVersion().LessThan(metadata.Parquet816FixedVersion),
+		parts:     partsPool.Get().(*chunkParts),
 	}, nil
 }
 
