@@ -390,7 +390,7 @@ func (p *plan) saveCache(ctx context.Context, cfg *Config, results []fileResult,
 			stored++
 		}
 	}
-	err := forEachFile(ctx, cfg.Workers, len(results), func(ctx context.Context, i int) error {
+	err := forEachFile(ctx, cfg.Workers, largestFirst(p.Files), func(ctx context.Context, i int) error {
 		if results[i].Origin.Source != sourceMeasured {
 			return nil
 		}

@@ -16,6 +16,6 @@
 // apply take no lock, as they share their output by design, but refuse an
 // output whose lock is held).
 // Inside,
-// one errgroup sized by Config.Workers processes files; every task writes
-// only its own slot of a pre-sized results slice.
+// one errgroup sized by Config.Workers processes files, largest first;
+// every task writes only its own slot of a pre-sized results slice.
 package jobs

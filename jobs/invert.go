@@ -130,7 +130,7 @@ func (p *plan) checkEmbedded(ctx context.Context, cfg *Config, want manifests.Fi
 	for _, c := range want.Columns {
 		byName[c.Name] = c
 	}
-	return forEachFile(ctx, cfg.Workers, len(p.Files), func(ctx context.Context, i int) error {
+	return forEachFile(ctx, cfg.Workers, largestFirst(p.Files), func(ctx context.Context, i int) error {
 		f := p.Files[i]
 		_, _, meta, err := arrowio.ReadFooter(f.Abs)
 		if err != nil {

@@ -5,6 +5,7 @@ import (
 	"context"
 	"fmt"
 	"slices"
+	"strings"
 
 	"github.com/apache/arrow/go/v17/arrow/memory"
 	"golang.org/x/sync/errgroup"
@@ -23,12 +24,12 @@ type fileResult struct {
 	Origin  origin               // measured, cached or (not fitted) only described
 }
 
-// forEachFile runs task for every file on one pool of cfg.Workers
-// goroutines, stopping at the first error.
-func forEachFile(ctx context.Context, workers int, n int, task func(ctx context.Context, i int) error) error {
+// forEachFile runs task for every index of order, in that order, on one
+// pool of workers goroutines, stopping at the first error.
+func forEachFile(ctx context.Context, workers int, order []int, task func(ctx context.Context, i int) error) error {
 	g, gctx := errgroup.WithContext(ctx)
 	g.SetLimit(workers)
-	for i := range n {
+	for _, i := range order {
 		if gctx.Err() != nil {
 			break
 		}
@@ -38,6 +39,27 @@ func forEachFile(ctx context.Context, workers int, n int, task func(ctx context.
 		return err
 	}
 	return context.Cause(ctx)
+}
+
+// largestFirst returns the indices of files in order of size, largest
+// first, equal sizes by path. Workers take files in this order, so that
+// the last files of a pass, when some workers are already idle, are the
+// smallest (Graham's "largest processing time first" list schedule, see
+// assign): with partitions of skewed sizes a pass no longer ends with one
+// large file read by one worker while the others wait.
+func largestFirst(files []arrowio.File) []int {
+	order := make([]int, len(files))
+	for i := range order {
+		order[i] = i
+	}
+	slices.SortStableFunc(order, func(a, b int) int {
+		fa, fb := files[a], files[b]
+		if c := cmp.Compare(fb.Size, fa.Size); c != 0 {
+			return c
+		}
+		return strings.Compare(fa.Rel, fb.Rel)
+	})
+	return order
 }
 
 // measureFiles is the part of pass one that reads the inputs: discovery,
@@ -67,7 +89,7 @@ func measureFiles(ctx context.Context, cfg *Config, defCache string, log *runLog
 // results are in file order.
 func passOne(ctx context.Context, cfg *Config, p *plan) ([]fileResult, error) {
 	results := make([]fileResult, len(p.Files))
-	err := forEachFile(ctx, cfg.Workers, len(p.Files), func(ctx context.Context, i int) error {
+	err := forEachFile(ctx, cfg.Workers, largestFirst(p.Files), func(ctx context.Context, i int) error {
 		if !p.mine(i) {
 			results[i].Origin.Source = sourceElsewhere
 			return nil

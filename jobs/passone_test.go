@@ -224,3 +224,28 @@ func TestRunRefusesInputChangedBetweenPasses(t *testing.T) {
 		})
 	}
 }
+
+// TestWorkersTakeLargestFilesFirst: the worker pool starts files largest
+// first, equal sizes by path, so that a pass ends with the smallest files
+// (the list schedule of Graham, SIAM J. Appl. Math. 17(2), 1969).
+func TestWorkersTakeLargestFilesFirst(t *testing.T) {
+	files := []arrowio.File{
+		{Rel: "site=a/part.parquet", Size: 5},
+		{Rel: "site=b/part.parquet", Size: 90},
+		{Rel: "site=c/part.parquet", Size: 1},
+		{Rel: "site=d/part.parquet", Size: 5},
+		{Rel: "site=e/part.parquet", Size: 40},
+	}
+	want := []int{1, 4, 0, 3, 2}
+	if got := largestFirst(files); !slices.Equal(got, want) {
+		t.Fatalf("largestFirst = %v, want %v", got, want)
+	}
+	var started []int
+	err := forEachFile(context.Background(), 1, largestFirst(files), func(_ context.Context, i int) error {
+		started = append(started, i)
+		return nil
+	})
+	if err != nil || !slices.Equal(started, want) {
+		t.Fatalf("one worker started %v (err %v), want %v", started, err, want)
+	}
+}

@@ -59,7 +59,7 @@ func passTwo(ctx context.Context, cfg *Config, p *plan, params []stats.Params, m
 	results := make([]written, len(p.Files))
 	// A failed commit cancels ctx, which stops the workers.
 	commits, ctx := arrowio.NewCommits(ctx, cfg.Workers)
-	err := forEachFile(ctx, cfg.Workers, len(p.Files), func(ctx context.Context, i int) error {
+	err := forEachFile(ctx, cfg.Workers, largestFirst(p.Files), func(ctx context.Context, i int) error {
 		if !p.mine(i) {
 			return nil
 		}

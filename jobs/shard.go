@@ -173,17 +173,7 @@ func (p *plan) mine(i int) bool { return p.share == nil || p.share[i] }
 // "Bounds on multiprocessing timing anomalies", SIAM J. Appl. Math. 17(2),
 // 1969; the shards' byte counts differ by at most the largest file.
 func assign(files []arrowio.File, n int) []int {
-	order := make([]int, len(files))
-	for i := range order {
-		order[i] = i
-	}
-	sort.SliceStable(order, func(a, b int) bool {
-		fa, fb := files[order[a]], files[order[b]]
-		if fa.Size != fb.Size {
-			return fa.Size > fb.Size
-		}
-		return fa.Rel < fb.Rel
-	})
+	order := largestFirst(files)
 	h := make(shardLoads, n)
 	for i := range h {
 		h[i].index = i // all zero: already a heap
