@@ -316,11 +316,22 @@ var partsPool = sync.Pool{New: func() any { return new(chunkParts) }}
 // done when neither the reader nor anything read from it is used any more
 // (for a copied column: after its output column chunk is closed).
 func (r *Reader) columnReader(rg, c int) (cr file.ColumnChunkReader, done func(), err error) {
+	pages, done, err := r.columnPages(rg, c)
+	if err != nil {
+		return nil, done, err
+	}
+	return file.NewColumnReader(r.pr.MetaData().Schema.Column(c), pages, r.mem, r.pr.BufferPool()), done, nil
+}
+
+// columnPages opens the page reader of leaf column c of row group rg, with
+// the Reader's own chunk parts when it may, else with Arrow's. Call done as
+// for columnReader.
+func (r *Reader) columnPages(rg, c int) (pages file.PageReader, done func(), err error) {
 	done = func() {}
 	p := r.parts
 	if p.busy || !r.ownChunks {
-		err = decoding(func() (err error) { cr, err = r.pr.RowGroup(rg).Column(c); return err })
-		return cr, done, err
+		err = decoding(func() (err error) { pages, err = r.pr.RowGroup(rg).GetColumnPageReader(c); return err })
+		return pages, done, err
 	}
 	err = decoding(func() error {
 		col, err := r.pr.MetaData().RowGroup(rg).ColumnChunk(c)
@@ -328,7 +339,7 @@ func (r *Reader) columnReader(rg, c int) (cr file.ColumnChunkReader, done func()
 			return err
 		}
 		if col.CryptoMetadata() != nil {
-			cr, err = r.pr.RowGroup(rg).Column(c)
+			pages, err = r.pr.RowGroup(rg).GetColumnPageReader(c)
 			return err
 		}
 		start := col.DataPageOffset()
@@ -353,12 +364,11 @@ func (r *Reader) columnReader(rg, c int) (cr file.ColumnChunkReader, done func()
 		} else {
 			p.pager.Reset(&p.stream, col.NumValues(), col.Compression(), nil)
 		}
-		descr := r.pr.MetaData().Schema.Column(c)
-		switch descr.PhysicalType() {
+		switch r.pr.MetaData().Schema.Column(c).PhysicalType() {
 		case parquet.Types.ByteArray, parquet.Types.FixedLenByteArray:
 			p.arena.drop = true
 		}
-		cr = file.NewColumnReader(descr, &p.pager, r.mem, r.pr.BufferPool())
+		pages = &p.pager
 		p.busy = true
 		done = func() {
 			p.busy = false
@@ -366,5 +376,5 @@ func (r *Reader) columnReader(rg, c int) (cr file.ColumnChunkReader, done func()
 		}
 		return nil
 	})
-	return cr, done, err
+	return pages, done, err
 }

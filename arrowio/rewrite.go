@@ -228,12 +228,16 @@ func (r *Reader) rewriteRowGroup(ctx context.Context, rgw file.SerialRowGroupWri
 		// done comes after cw.Close: until then the column's byte-array
 		// statistics may point into the input's pages. After an error the
 		// Reader's chunk parts stay busy and unrecycled.
-		cr, done, err := r.columnReader(rg, c)
 		var rows int64
-		if err == nil {
-			if m != nil {
+		var done func()
+		if m == nil && r.canCopyIndices(rg, c, cw) {
+			rows, done, err = r.copyIndices(ctx, rg, c, cw, batch)
+		} else {
+			var cr file.ColumnChunkReader
+			cr, done, err = r.columnReader(rg, c)
+			if err == nil && m != nil {
 				rows, err = r.mapColumn(ctx, cr, c, cw, m, batch)
-			} else {
+			} else if err == nil {
 				rows, err = r.copyColumn(ctx, cr, c, cw, batch)
 			}
 		}

@@ -87,8 +87,9 @@ const outputZstdLevel = 1
 // quarter of Arrow's default (1 MiB). Each page is compressed on its own,
 // and a zstd encoder working through 256 KiB pages stays within the CPU's
 // caches: a full run of a quarter of the benchmark lake (make bench) took
-// 7-10% less CPU at 1 and 2 workers, for files 1.5% larger.
-const outputPageBytes = 256 << 10
+// 7-10% less CPU at 1 and 2 workers, for files 1.5% larger. (A variable
+// so that tests can cut many pages from little data.)
+var outputPageBytes int64 = 256 << 10
 
 // writerProps builds deterministic writer properties for schema: the
 // chosen codec (zstd at outputZstdLevel), a constant created_by, the
