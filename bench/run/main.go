@@ -214,6 +214,28 @@ func main() {
 					t1, t2, t1, t2, x.wall/y.wall, x.cpu, y.cpu)
 			}
 		}
+		// On a shared machine the fastest repetition is the one the other
+		// tenants disturbed least (common practice for noisy hosts); its
+		// speed-up is context, the goal is judged on medians above.
+		fastest := func(name string, t int) (float64, bool) {
+			ss := samples[fmt.Sprintf("%s/%d", name, t)]
+			if len(ss) == 0 {
+				return 0, false
+			}
+			m := ss[0].wall
+			for _, s := range ss[1:] {
+				m = min(m, s.wall)
+			}
+			return m, true
+		}
+		for _, name := range []string{"full run", "peer"} {
+			x, ok1 := fastest(name, t1)
+			y, ok2 := fastest(name, t2)
+			if ok1 && ok2 {
+				fmt.Fprintf(&out, "| (context) %s speed-up of the fastest repetitions, %d → %d | %d/%d | %.2f | wall s %.2f / %.2f | |\n",
+					name, t1, t2, t1, t2, x/y, x, y)
+			}
+		}
 		var peak float64
 		for _, j := range jobs {
 			if strings.HasPrefix(j.name, "pass") || j.name == "full run" {
