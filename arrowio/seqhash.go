@@ -69,10 +69,12 @@ func (s *seqHasher) ReadAt(p []byte, off int64) (int, error) {
 	return n, err
 }
 
-// fill hashes [next, to) by reading it; s.mu is held.
+// fill hashes [next, to) by reading it; s.mu is held. The buffer grows to
+// the largest gap, up to gapBufferSize: a small file's gaps are small, and
+// a buffer of 1 MiB for each of them cost more than reading the file.
 func (s *seqHasher) fill(to int64) {
-	if s.buf == nil {
-		s.buf = make([]byte, gapBufferSize)
+	if want := int(min(gapBufferSize, to-s.next)); len(s.buf) < want {
+		s.buf = make([]byte, want)
 	}
 	for s.next < to && s.err == nil {
 		k := min(int64(len(s.buf)), to-s.next)

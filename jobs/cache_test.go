@@ -10,10 +10,10 @@ import (
 	"github.com/lakescale/lakescale/arrowio"
 )
 
-// A real entry decodes to the result it was made from; every single-byte
-// change, every truncation and an extension are rejected as corrupt, and
-// a key that differs in any part makes the entry stale.
-func TestCacheEntryDamage(t *testing.T) {
+// measureOneDemoFile writes one demo file into a lake of its own and
+// measures it with pass one, as a one-worker run would.
+func measureOneDemoFile(t *testing.T) (*plan, fileResult) {
+	t.Helper()
 	tmp := t.TempDir()
 	lake := filepath.Join(tmp, "lake")
 	writeDemoFile(t, lake, demoRel(0, 0), 0, 0)
@@ -26,6 +26,14 @@ func TestCacheEntryDamage(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	return p, res
+}
+
+// A real entry decodes to the result it was made from; every single-byte
+// change, every truncation and an extension are rejected as corrupt, and
+// a key that differs in any part makes the entry stale.
+func TestCacheEntryDamage(t *testing.T) {
+	p, res := measureOneDemoFile(t)
 	r, err := arrowio.Open(p.Files[0].Abs, memory.DefaultAllocator)
 	if err != nil {
 		t.Fatal(err)

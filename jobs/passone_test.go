@@ -249,3 +249,24 @@ func TestWorkersTakeLargestFilesFirst(t *testing.T) {
 		t.Fatalf("one worker started %v (err %v), want %v", started, err, want)
 	}
 }
+
+// TestMeasuredStatesAreCompact: pass one keeps every file's states until
+// all files are measured, so each must be compacted (stats.Accumulator.
+// Compact) when its file is done: a few hundred bytes per column, not the
+// 128 KiB of live float slots, or memory would grow with the number of
+// files.
+func TestMeasuredStatesAreCompact(t *testing.T) {
+	p, res := measureOneDemoFile(t)
+	floats := 0
+	for j, a := range res.Accs {
+		if a.Kind() == stats.KindFloat {
+			floats++
+		}
+		if n := a.Footprint(); n > 4096 {
+			t.Errorf("column %s: a measured state holds %d bytes", p.Columns[j].Name, n)
+		}
+	}
+	if floats == 0 {
+		t.Fatal("test data: no float column")
+	}
+}

@@ -14,6 +14,8 @@ const (
 	expMask  = 0x7FF
 	fracMask = 1<<52 - 1
 	nSlots   = 2048
+
+	slotBytes = 64 // the size of a slot
 )
 
 // slot holds the live sums of one biased exponent e, where each value is

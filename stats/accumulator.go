@@ -131,6 +131,31 @@ func NewAccumulator(k Kind) *Accumulator {
 	return &Accumulator{kind: k, minKey: math.MaxUint64}
 }
 
+// Compact folds the live sums of a KindFloat accumulator into its exact
+// integer form and drops their per-exponent slots (128 KiB). The state is
+// unchanged: Summary, Merge and MarshalBinary give exactly what they gave
+// before, and values may still be added (into new slots). Call it once a
+// column's values are in (a file is done), so that keeping one state per
+// file costs hundreds of bytes, not the slots.
+func (a *Accumulator) Compact() {
+	if a.fs == nil {
+		return
+	}
+	a.fs.foldInto(&a.s, &a.q)
+	a.fs = nil
+}
+
+// Footprint is the memory, in bytes, a holds beyond its own struct: the
+// live slots of a KindFloat accumulator (128 KiB until Compact) and the
+// words of its folded sums.
+func (a *Accumulator) Footprint() int {
+	n := 8 * (len(a.s.Bits()) + len(a.q.Bits()))
+	if a.fs != nil {
+		n += nSlots * slotBytes
+	}
+	return n
+}
+
 // Kind reports the accumulator's kind.
 func (a *Accumulator) Kind() Kind { return a.kind }
 

@@ -11,6 +11,7 @@ import (
 	"slices"
 	"strings"
 	"testing"
+	"unsafe"
 
 	"github.com/apache/arrow/go/v17/arrow"
 	"github.com/apache/arrow/go/v17/arrow/array"
@@ -773,4 +774,62 @@ func accULPDiff(x, y float64) uint64 {
 		return a - b
 	}
 	return b - a
+}
+
+// TestCompact: compacting leaves the state as it was (MarshalBinary bytes
+// and Summary equal to an accumulator never compacted), values may follow
+// a compaction, and the accumulators made after it start from zero: fed
+// {1, 2.5}, one has the exact mean 1.75 and population variance 0.5625 (by
+// hand: deviations ±0.75).
+func TestCompact(t *testing.T) {
+	mem := memory.NewCheckedAllocator(memory.NewGoAllocator())
+	defer mem.AssertSize(t, 0)
+	for _, c := range accAdversarialFloats() {
+		whole := accFeedFloat64(t, mem, c.vals, c.valid)
+		parts := NewAccumulator(KindFloat)
+		for lo := 0; lo < len(c.vals); lo += 700 {
+			hi := min(lo+700, len(c.vals))
+			var valid []bool
+			if c.valid != nil {
+				valid = c.valid[lo:hi]
+			}
+			arr := accFloat64Array(mem, c.vals[lo:hi], valid)
+			if err := parts.Add(arr); err != nil {
+				t.Fatal(err)
+			}
+			arr.Release()
+			parts.Compact()
+			if parts.fs != nil {
+				t.Fatalf("%s: slots kept after Compact", c.name)
+			}
+		}
+		if !accSameBytes(t, whole, parts) {
+			t.Errorf("%s: compacted in parts of 700 differs from one accumulator", c.name)
+		}
+		accCheckSummary(t, c.name+", compacted", parts.Summary(), whole.Summary())
+		whole.Compact()
+		fresh := accFeedFloat64(t, mem, []float64{1, 2.5}, nil)
+		if s := fresh.Summary(); s.Mean != 1.75 || s.VarPopulation != 0.5625 {
+			t.Fatalf("%s: after reusing compacted slots, {1, 2.5} gives mean %v, variance %v", c.name, s.Mean, s.VarPopulation)
+		}
+		fresh.Compact()
+	}
+}
+
+// TestFootprint: a float accumulator holds its 128 KiB of slots until
+// Compact, then only the words of its folded sums.
+func TestFootprint(t *testing.T) {
+	if got := int(unsafe.Sizeof(slot{})); got != slotBytes {
+		t.Fatalf("a slot is %d bytes, slotBytes says %d", got, slotBytes)
+	}
+	mem := memory.NewCheckedAllocator(memory.NewGoAllocator())
+	defer mem.AssertSize(t, 0)
+	a := accFeedFloat64(t, mem, []float64{1e300, -3.25, 5e-324}, nil)
+	if got := a.Footprint(); got < nSlots*slotBytes {
+		t.Errorf("live footprint %d, want at least %d", got, nSlots*slotBytes)
+	}
+	a.Compact()
+	if got := a.Footprint(); got == 0 || got > 2048 {
+		t.Errorf("compacted footprint %d, want the folded sums' words (1..2048 bytes)", got)
+	}
 }
