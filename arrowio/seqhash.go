@@ -4,6 +4,7 @@ import (
 	"crypto/sha256"
 	"encoding/hex"
 	"hash"
+	"io"
 	"sync"
 )
 
@@ -83,6 +84,9 @@ func (s *seqHasher) fill(to int64) {
 		s.next += int64(m)
 		s.gaps += int64(m)
 		if int64(m) < k {
+			if err == nil {
+				err = io.ErrUnexpectedEOF // a short read without a reason
+			}
 			s.err = err
 		}
 	}

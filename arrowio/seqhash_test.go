@@ -4,9 +4,12 @@ import (
 	"context"
 	"crypto/sha256"
 	"encoding/hex"
+	"errors"
 	"fmt"
+	"io"
 	"os"
 	"testing"
+	"time"
 
 	"github.com/apache/arrow/go/v17/arrow/memory"
 )
@@ -91,4 +94,34 @@ func openStreams(t *testing.T, path string, buffered bool) *Reader {
 	}
 	t.Cleanup(func() { r.Close() })
 	return r
+}
+
+// stallingObject is an object of 1 KiB whose reads return nothing and no
+// error, as a broken store might.
+type stallingObject struct{}
+
+func (stallingObject) ReadAt(p []byte, off int64) (int, error) { return 0, nil }
+func (stallingObject) Close() error                            { return nil }
+func (stallingObject) Size() int64                             { return 1 << 10 }
+func (stallingObject) Version() string                         { return "1" }
+
+// TestSeqHasherShortReadWithoutError: a read that returns fewer bytes and
+// no error ends the hash with io.ErrUnexpectedEOF instead of retrying for
+// ever.
+func TestSeqHasherShortReadWithoutError(t *testing.T) {
+	s := newSeqHasher(stallingObject{})
+	s.start()
+	done := make(chan error, 1)
+	go func() {
+		_, _, err := s.Sum()
+		done <- err
+	}()
+	select {
+	case err := <-done:
+		if !errors.Is(err, io.ErrUnexpectedEOF) {
+			t.Fatalf("Sum: %v, want io.ErrUnexpectedEOF", err)
+		}
+	case <-time.After(10 * time.Second):
+		t.Fatal("Sum still reading after 10 s")
+	}
 }

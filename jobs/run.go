@@ -41,6 +41,11 @@ func Run(ctx context.Context, cfg Config) (err error) {
 	if err != nil {
 		return err
 	}
+	// The states are merged and cached; pass two and the manifest need only
+	// each input's rows, size, hash and version.
+	for i := range results {
+		results[i].Accs = nil
+	}
 	// The output is touched only once the statistics are known to be good.
 	if err := prepareOutput(&cfg); err != nil {
 		return err

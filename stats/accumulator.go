@@ -136,7 +136,8 @@ func NewAccumulator(k Kind) *Accumulator {
 // unchanged: Summary, Merge and MarshalBinary give exactly what they gave
 // before, and values may still be added (into new slots). Call it once a
 // column's values are in (a file is done), so that keeping one state per
-// file costs hundreds of bytes, not the slots.
+// file costs hundreds of bytes, not the slots; not between batches, where
+// the next value would allocate the slots again.
 func (a *Accumulator) Compact() {
 	if a.fs == nil {
 		return

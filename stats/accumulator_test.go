@@ -810,7 +810,7 @@ func TestCompact(t *testing.T) {
 		whole.Compact()
 		fresh := accFeedFloat64(t, mem, []float64{1, 2.5}, nil)
 		if s := fresh.Summary(); s.Mean != 1.75 || s.VarPopulation != 0.5625 {
-			t.Fatalf("%s: after reusing compacted slots, {1, 2.5} gives mean %v, variance %v", c.name, s.Mean, s.VarPopulation)
+			t.Fatalf("%s: after a compaction, a new accumulator fed {1, 2.5} gives mean %v, variance %v", c.name, s.Mean, s.VarPopulation)
 		}
 		fresh.Compact()
 	}
