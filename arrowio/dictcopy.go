@@ -68,17 +68,8 @@ func (r *Reader) canCopyIndices(rg, c int, cw file.ColumnChunkWriter) bool {
 	if err != nil || !col.HasDictionaryPage() {
 		return false
 	}
-	data := 0
-	for _, s := range col.EncodingStats() {
-		switch s.PageType.String() {
-		case "DATA_PAGE", "DATA_PAGE_V2":
-			if s.Encoding != parquet.Encodings.RLEDict && s.Encoding != parquet.Encodings.PlainDict {
-				return false
-			}
-			data++
-		}
-	}
-	return data > 0
+	dict, other := dataPageEncodings(col)
+	return dict > 0 && other == 0
 }
 
 // copyIndices copies column c of row group rg into w by its dictionary

@@ -127,16 +127,28 @@ func (r *Reader) dictionaryAbandoned(c int) bool {
 		if err != nil || !cc.HasDictionaryPage() {
 			continue
 		}
-		for _, s := range cc.EncodingStats() {
-			switch s.PageType.String() {
-			case "DATA_PAGE", "DATA_PAGE_V2":
-				if s.Encoding != parquet.Encodings.RLEDict && s.Encoding != parquet.Encodings.PlainDict {
-					return true
-				}
-			}
+		if _, other := dataPageEncodings(cc); other > 0 {
+			return true
 		}
 	}
 	return false
+}
+
+// dataPageEncodings counts, from a column chunk's page encoding statistics,
+// the data pages that are dictionary-encoded and the others. Both are 0
+// when the writer recorded no such statistics.
+func dataPageEncodings(cc *metadata.ColumnChunkMetaData) (dict, other int) {
+	for _, s := range cc.EncodingStats() {
+		switch s.PageType.String() {
+		case "DATA_PAGE", "DATA_PAGE_V2":
+			if s.Encoding == parquet.Encodings.RLEDict || s.Encoding == parquet.Encodings.PlainDict {
+				dict++
+			} else {
+				other++
+			}
+		}
+	}
+	return dict, other
 }
 
 // ErrNotRewritable is what RewriteParquetAtomic returns, before writing
@@ -234,11 +246,12 @@ func (r *Reader) rewriteRowGroup(ctx context.Context, rgw file.SerialRowGroupWri
 			rows, done, err = r.copyIndices(ctx, rg, c, cw, batch)
 		} else {
 			var cr file.ColumnChunkReader
-			cr, done, err = r.columnReader(rg, c)
-			if err == nil && m != nil {
-				rows, err = r.mapColumn(ctx, cr, c, cw, m, batch)
-			} else if err == nil {
-				rows, err = r.copyColumn(ctx, cr, c, cw, batch)
+			if cr, done, err = r.columnReader(rg, c); err == nil {
+				if m != nil {
+					rows, err = r.mapColumn(ctx, cr, c, cw, m, batch)
+				} else {
+					rows, err = r.copyColumn(ctx, cr, c, cw, batch)
+				}
 			}
 		}
 		if err == nil && rows != want {

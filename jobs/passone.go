@@ -52,7 +52,7 @@ func largestFirst(files []arrowio.File) []int {
 	for i := range order {
 		order[i] = i
 	}
-	slices.SortStableFunc(order, func(a, b int) int {
+	slices.SortFunc(order, func(a, b int) int { // paths are unique: a total order
 		fa, fb := files[a], files[b]
 		if c := cmp.Compare(fb.Size, fa.Size); c != 0 {
 			return c
